@@ -143,7 +143,6 @@ _NOT_TRUNCATION = frozenset(
 )
 
 _THOUSANDS = re.compile(r"[1-9]\d{0,2}(,\d{3})+(\.\d*)?")
-_PLAIN_NUMBER = re.compile(r"\d+(\.\d*)?|\.\d+")
 
 
 class JUnitParseError(ValueError):
