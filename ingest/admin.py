@@ -1,0 +1,94 @@
+from django.contrib import admin, messages
+
+from ingest import models
+from ingest.tasks import job_enqueue
+
+
+@admin.register(models.Project)
+class ProjectAdmin(admin.ModelAdmin):
+    list_display = ("slug", "name", "created_at")
+    prepopulated_fields = {"slug": ("name",)}
+
+
+@admin.register(models.Component)
+class ComponentAdmin(admin.ModelAdmin):
+    list_display = ("name", "project")
+    list_filter = ("project",)
+
+
+@admin.register(models.ComponentAlias)
+class ComponentAliasAdmin(admin.ModelAdmin):
+    list_display = ("alias", "component", "project")
+    list_filter = ("project",)
+
+
+@admin.register(models.ComponentRule)
+class ComponentRuleAdmin(admin.ModelAdmin):
+    list_display = ("classname_prefix", "component", "project")
+    list_filter = ("project",)
+
+
+@admin.register(models.TestCase)
+class TestCaseAdmin(admin.ModelAdmin):
+    list_display = ("classname", "name", "component", "component_locked", "project")
+    list_filter = ("project", "component")
+    search_fields = ("classname", "name")
+    list_select_related = ("component", "project")
+
+    def save_model(self, request, obj, form, change):
+        if "component" in form.changed_data:
+            obj.component_locked = True
+        super().save_model(request, obj, form, change)
+
+
+@admin.register(models.Build)
+class BuildAdmin(admin.ModelAdmin):
+    list_display = ("external_id", "project", "branch", "commit", "ci_job", "started_at")
+    list_filter = ("project", "branch")
+    search_fields = ("external_id", "commit")
+
+
+@admin.register(models.ApiToken)
+class ApiTokenAdmin(admin.ModelAdmin):
+    list_display = ("name", "project", "key_prefix", "created_at", "last_used_at", "revoked")
+    list_filter = ("project", "revoked")
+    fields = ("project", "name", "revoked", "key_prefix", "created_at", "last_used_at")
+    readonly_fields = ("key_prefix", "created_at", "last_used_at")
+
+    def save_model(self, request, obj, form, change):
+        if change:
+            return super().save_model(request, obj, form, change)
+        token, key = models.ApiToken.issue(project=obj.project, name=obj.name)
+        obj.pk = token.pk
+        self.message_user(
+            request, f"New token for {obj.project}: {key} — copy it now, it is not shown again.", messages.WARNING
+        )
+
+
+@admin.action(description="Retry the selected failed imports")
+def retry_imports(modeladmin, request, queryset):
+    count = 0
+    for job in queryset.filter(status=models.ImportJob.Status.FAILED):
+        models.ImportJob.objects.filter(pk=job.pk).update(status=models.ImportJob.Status.QUEUED, enqueued_at=None)
+        count += job_enqueue(job)
+    modeladmin.message_user(request, f"{count} job(s) queued again.")
+
+
+@admin.register(models.ImportJob)
+class ImportJobAdmin(admin.ModelAdmin):
+    list_display = ("id", "project", "kind", "status", "original_name", "created_at", "finished_at")
+    list_filter = ("project", "kind", "status")
+    actions = [retry_imports]
+    readonly_fields = ("counts", "warnings", "row_errors", "error", "sha256", "size")
+
+
+@admin.register(models.DefectColumnMap)
+class DefectColumnMapAdmin(admin.ModelAdmin):
+    list_display = ("name", "project", "updated_at")
+
+
+@admin.register(models.Defect)
+class DefectAdmin(admin.ModelAdmin):
+    list_display = ("key", "title", "status", "severity", "created_at", "resolved_at")
+    list_filter = ("project", "is_closed")
+    search_fields = ("key", "title")

@@ -1,0 +1,456 @@
+"""JUnit-XML results: store uploads, import them into a build atomically, keep the weekly rollup."""
+
+from __future__ import annotations
+
+import hashlib
+import io
+import json
+import logging
+import zipfile
+from collections.abc import Iterable, Iterator
+from dataclasses import dataclass, field
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import BinaryIO
+
+from django.core.cache import cache
+from django.db import connection, transaction
+from django.db.models import Max
+from django.utils import timezone
+
+from ingest.bulk import rows_bulk_insert
+from ingest.models import Build, ImportedReport, ImportJob, Project, StoredFile, TestCase, TestResult
+from ingest.parsers.junit import JUnitParseError, JUnitReader, ParsedResult
+from ingest.services.components import ComponentRules
+from ingest.storage import raw_file_path, raw_file_store
+
+log = logging.getLogger(__name__)
+
+BATCH_SIZE = 5000
+MAX_ZIP_MEMBERS = 10_000
+MAX_ZIP_MEMBER_BYTES = 2 * 1024**3
+
+ERR_NO_REPORTS = "{name}: contains no .xml report"
+ERR_ZIP = "{name}: not a readable .zip archive ({reason})"
+ERR_ZIP_BOMB = "{name}: archive member {member} is larger than allowed when unpacked ({size} bytes)"
+ERR_NO_BUILD = "the build id is missing: give --build (CLI) or the 'build' field (API)"
+ERR_BAD_STARTED = "'started' is not an ISO 8601 date-time: {value!r}"
+
+
+class ResultsImportError(Exception):
+    """A whole upload was refused; the message names the file and the reason."""
+
+
+@dataclass
+class BuildMeta:
+    build: str
+    commit: str = ""
+    branch: str = ""
+    ci_job: str = ""
+    started: str = ""  # ISO 8601; empty = time of import
+
+    @classmethod
+    def from_dict(cls, data: dict) -> BuildMeta:
+        meta = cls(
+            build=str(data.get("build") or "").strip(),
+            commit=str(data.get("commit") or "").strip(),
+            branch=str(data.get("branch") or "").strip(),
+            ci_job=str(data.get("ci_job") or "").strip(),
+            started=str(data.get("started") or "").strip(),
+        )
+        meta.validate()
+        return meta
+
+    def validate(self) -> None:
+        if not self.build:
+            raise ResultsImportError(ERR_NO_BUILD)
+        if self.started:
+            self.started_at()
+
+    def started_at(self) -> datetime | None:
+        if not self.started:
+            return None
+        try:
+            value = datetime.fromisoformat(self.started.replace("Z", "+00:00"))
+        except ValueError as exc:
+            raise ResultsImportError(ERR_BAD_STARTED.format(value=self.started)) from exc
+        if timezone.is_naive(value):
+            value = timezone.make_aware(value, UTC)
+        return value
+
+    def as_dict(self) -> dict:
+        return {"build": self.build, "commit": self.commit, "branch": self.branch, "ci_job": self.ci_job,
+                "started": self.started}
+
+
+@dataclass
+class ImportCounts:
+    tests: int = 0
+    passed: int = 0
+    failed: int = 0
+    errors: int = 0
+    skipped: int = 0
+    reruns: int = 0
+    reports: int = 0
+    reports_already_imported: int = 0
+    new_test_cases: int = 0
+    warnings: list[str] = field(default_factory=list)
+
+    def add(self, outcome: str, attempt: int) -> None:
+        self.tests += 1
+        if attempt > 1:
+            self.reruns += 1
+        if outcome == "passed":
+            self.passed += 1
+        elif outcome == "failed":
+            self.failed += 1
+        elif outcome == "error":
+            self.errors += 1
+        else:
+            self.skipped += 1
+
+    def as_dict(self) -> dict:
+        return {k: v for k, v in self.__dict__.items() if k != "warnings"}
+
+
+# --------------------------------------------------------------------------------------------------- storing
+def results_job_create(
+    *,
+    project: Project,
+    files: Iterable[tuple[str, BinaryIO]],
+    meta: BuildMeta,
+    user=None,
+    via: str = "api",
+) -> ImportJob:
+    """Store the raw files and a queued ImportJob. Nothing is parsed here (the worker does that)."""
+    meta.validate()
+    stored = []
+    for name, stream in files:
+        sha, size, rel = raw_file_store(stream)
+        stored.append((name, sha, size, rel))
+    if not stored:
+        raise ResultsImportError("no file was uploaded")
+    with transaction.atomic():
+        job = ImportJob.objects.create(
+            project=project,
+            kind=ImportJob.Kind.RESULTS,
+            original_name=", ".join(s[0] for s in stored)[:500],
+            size=sum(s[2] for s in stored),
+            sha256=stored[0][1] if len(stored) == 1 else "",
+            parameters=meta.as_dict(),
+            created_by=user if getattr(user, "pk", None) else None,
+            created_via=via,
+        )
+        StoredFile.objects.bulk_create(
+            StoredFile(job=job, original_name=n, sha256=sha, size=size, path=rel) for n, sha, size, rel in stored
+        )
+    return job
+
+
+def _reports_in(stored: StoredFile) -> Iterator[tuple[str, str, BinaryIO]]:
+    """Yield (display name, sha256, stream) for each report in a stored file (a .zip gives its .xml members)."""
+    path = raw_file_path(stored.path)
+    if stored.original_name.lower().endswith(".zip") or zipfile.is_zipfile(path):
+        try:
+            archive = zipfile.ZipFile(path)
+        except (zipfile.BadZipFile, OSError) as exc:
+            raise ResultsImportError(ERR_ZIP.format(name=stored.original_name, reason=exc)) from exc
+        with archive:
+            members = [m for m in archive.infolist() if not m.is_dir() and m.filename.lower().endswith(".xml")]
+            if not members:
+                raise ResultsImportError(ERR_NO_REPORTS.format(name=stored.original_name))
+            for member in sorted(members, key=lambda m: m.filename)[:MAX_ZIP_MEMBERS]:
+                if member.file_size > MAX_ZIP_MEMBER_BYTES:
+                    raise ResultsImportError(
+                        ERR_ZIP_BOMB.format(name=stored.original_name, member=member.filename, size=member.file_size)
+                    )
+                data = archive.read(member)
+                yield (f"{stored.original_name}:{member.filename}", hashlib.sha256(data).hexdigest(), io.BytesIO(data))
+    else:
+        with open(path, "rb") as fh:
+            yield stored.original_name, stored.sha256, fh
+
+
+# --------------------------------------------------------------------------------------------------- importing
+RESULT_COLUMNS = (
+    "project_id", "build_id", "test_case_id", "outcome", "duration", "attempt", "failure_type", "message",
+    "details", "system_out", "system_err", "truncated", "signature",
+)
+
+
+class _TestCaseCache:
+    def __init__(self, project: Project):
+        self.project = project
+        self.ids: dict[tuple[str, str], int] = {}
+        self.rules = ComponentRules(project)
+        self.created = 0
+
+    def resolve(self, parsed: list[ParsedResult]) -> None:
+        missing = {(p.classname, p.name): p for p in parsed if (p.classname, p.name) not in self.ids}
+        if not missing:
+            return
+        keys = list(missing)
+        for start in range(0, len(keys), 500):
+            chunk = keys[start : start + 500]
+            names = {k[1] for k in chunk}
+            for tc_id, classname, name in TestCase.objects.filter(project=self.project, name__in=names).values_list(
+                "id", "classname", "name"
+            ):
+                if (classname, name) in missing:
+                    self.ids[(classname, name)] = tc_id
+        new = [k for k in keys if k not in self.ids]
+        if new:
+            TestCase.objects.bulk_create(
+                [
+                    TestCase(
+                        project=self.project,
+                        classname=k[0][:500],
+                        name=k[1][:500],
+                        file=missing[k].file[:500],
+                        suite=missing[k].suite[:500],
+                        component_id=self.rules.component_id_for(k[0]),
+                    )
+                    for k in new
+                ],
+                batch_size=1000,
+                ignore_conflicts=True,
+            )
+            self.created += len(new)
+            for start in range(0, len(new), 500):
+                chunk = new[start : start + 500]
+                names = {k[1] for k in chunk}
+                for tc_id, classname, name in TestCase.objects.filter(
+                    project=self.project, name__in=names
+                ).values_list("id", "classname", "name"):
+                    self.ids.setdefault((classname, name), tc_id)
+
+
+def _build_get_or_create(project: Project, meta: BuildMeta, fallback_started: datetime | None) -> Build:
+    build = Build.objects.filter(project=project, external_id=meta.build).first()
+    if build is not None:
+        return build
+    build = Build(
+        project=project,
+        external_id=meta.build[:200],
+        commit=meta.commit[:80],
+        branch=meta.branch[:250],
+        ci_job=meta.ci_job[:250],
+        started_at=meta.started_at() or fallback_started or timezone.now(),
+    )
+    build.save()
+    return build
+
+
+def results_job_run(*, job: ImportJob, progress: bool = True) -> ImportCounts:
+    """Parse and write every report of ``job`` into its build, in ONE transaction.
+
+    Idempotent: a report whose content was already imported into the same build is skipped. Any parse error
+    rolls the whole job back (no partial rows) and marks the job failed with a message naming the file.
+    """
+    job.status = ImportJob.Status.RUNNING
+    job.started_at = timezone.now()
+    job.attempts += 1
+    job.error = ""
+    job.progress = 0.0
+    job.save(update_fields=["status", "started_at", "attempts", "error", "progress"])
+    counts = ImportCounts()
+    try:
+        meta = BuildMeta.from_dict(job.parameters)
+        stored_files = list(job.files.all())
+        total_bytes = max(1, sum(s.size for s in stored_files))
+        done_bytes = 0
+        with transaction.atomic():
+            build = _build_get_or_create(job.project, meta, None)
+            writer = _BuildWriter(job=job, build=build, counts=counts)
+            for stored in stored_files:
+                for display, sha, stream in _reports_in(stored):
+                    writer.report(display, sha, stream)
+                done_bytes += stored.size
+                if progress:
+                    _progress_save(job, done_bytes / total_bytes)
+            writer.finish()
+            job.build = build
+            job.status = ImportJob.Status.DONE
+            job.counts = counts.as_dict()
+            job.warnings = counts.warnings
+            job.progress = 1.0
+            job.finished_at = timezone.now()
+            job.save()
+            if writer.new_results:
+                from ingest.hooks import after_results_import
+
+                transaction.on_commit(lambda: after_results_import(project_id=job.project_id, build_id=build.id))
+    except (JUnitParseError, ResultsImportError) as exc:
+        _job_fail(job, str(exc))
+        raise ResultsImportError(str(exc)) from exc
+    except Exception as exc:  # unexpected: keep the file, record the error, re-raise for the logs
+        log.exception("results import job %s failed", job.pk)
+        _job_fail(job, f"internal error while importing: {exc.__class__.__name__}: {exc}")
+        raise
+    return counts
+
+
+def progress_cache_key(job_id: int) -> str:
+    return f"barometer:import-progress:{job_id}"
+
+
+def _progress_save(job: ImportJob, value: float) -> None:
+    # The job row is inside the import transaction and invisible to pollers until commit: publish the
+    # progress through the cache (shared by web and workers when CACHE_URL points at Redis).
+    cache.set(progress_cache_key(job.pk), min(value, 0.99), timeout=3600)
+
+
+def _job_fail(job: ImportJob, message: str) -> None:
+    ImportJob.objects.filter(pk=job.pk).update(
+        status=ImportJob.Status.FAILED, error=message, finished_at=timezone.now(), progress=0.0
+    )
+    job.refresh_from_db()
+
+
+class _BuildWriter:
+    def __init__(self, *, job: ImportJob, build: Build, counts: ImportCounts):
+        self.job = job
+        self.build = build
+        self.project = job.project
+        self.counts = counts
+        self.cases = _TestCaseCache(self.project)
+        self.max_attempt: dict[int, int] = dict(
+            TestResult.objects.filter(build=build)
+            .values("test_case_id")
+            .annotate(m=Max("attempt"))
+            .values_list("test_case_id", "m")
+        )
+        self.new_results = 0
+        self.earliest_ts: datetime | None = None
+
+    def report(self, display: str, sha: str, stream: BinaryIO) -> None:
+        if ImportedReport.objects.filter(project=self.project, build=self.build, sha256=sha).exists():
+            self.counts.reports_already_imported += 1
+            return
+        reader = JUnitReader(stream, filename=display)
+        file_max: dict[int, int] = {}
+        base = dict(self.max_attempt)
+        written = 0
+        batch: list[ParsedResult] = []
+        for parsed in reader:
+            batch.append(parsed)
+            if len(batch) >= BATCH_SIZE:
+                written += self._write(batch, base, file_max)
+                batch = []
+        if batch:
+            written += self._write(batch, base, file_max)
+        for tc_id, attempt in file_max.items():
+            self.max_attempt[tc_id] = max(self.max_attempt.get(tc_id, 0), attempt)
+        self.counts.warnings.extend(reader.warnings)
+        self.counts.reports += 1
+        ImportedReport.objects.create(
+            project=self.project, build=self.build, sha256=sha, original_name=display[:500], job=self.job,
+            results=written,
+        )
+
+    def _write(self, batch: list[ParsedResult], base: dict[int, int], file_max: dict[int, int]) -> int:
+        self.cases.resolve(batch)
+        rows = []
+        for p in batch:
+            tc_id = self.cases.ids[(p.classname, p.name)]
+            attempt = base.get(tc_id, 0) + p.attempt
+            if attempt > file_max.get(tc_id, 0):
+                file_max[tc_id] = attempt
+            self.counts.add(p.outcome, attempt)
+            rows.append(
+                (
+                    self.project.id, self.build.id, tc_id, p.outcome, p.duration, attempt, p.failure_type[:300],
+                    p.message, p.details, p.system_out, p.system_err, json.dumps(dict(p.truncated)), "",
+                )
+            )
+        n = rows_bulk_insert(table=TestResult._meta.db_table, columns=RESULT_COLUMNS, rows=rows)
+        self.new_results += n
+        return n
+
+    def finish(self) -> None:
+        self.counts.new_test_cases = self.cases.created
+        if self.new_results:
+            rollup_add_build(build=self.build)
+
+
+# --------------------------------------------------------------------------------------------------- rollups
+_ROLLUP_SELECT = """
+    SELECT r.project_id, r.test_case_id, b.week,
+           COUNT(*),
+           SUM(CASE WHEN r.outcome = 'passed' THEN 1 ELSE 0 END),
+           SUM(CASE WHEN r.outcome = 'failed' THEN 1 ELSE 0 END),
+           SUM(CASE WHEN r.outcome = 'error' THEN 1 ELSE 0 END),
+           SUM(CASE WHEN r.outcome = 'skipped' THEN 1 ELSE 0 END),
+           SUM(CASE WHEN r.attempt > 1 THEN 1 ELSE 0 END),
+           COALESCE(SUM(r.duration), 0),
+           COUNT(r.duration)
+    FROM ingest_testresult r JOIN ingest_build b ON b.id = r.build_id
+"""
+_ROLLUP_INSERT = (
+    "INSERT INTO ingest_testweek (project_id, test_case_id, week, runs, passed, failed, errors, skipped, reruns,"
+    " duration_total, duration_count) "
+)
+
+
+def rollup_add_build(*, build: Build) -> None:
+    """Add one build's results to the per-test weekly rollup (cost grows with the build, not the history).
+
+    Must be called exactly once per newly written set of results (the ingest transaction guarantees it).
+    """
+    sql = (
+        _ROLLUP_INSERT
+        + _ROLLUP_SELECT
+        + " WHERE r.build_id = %s GROUP BY r.project_id, r.test_case_id, b.week"
+        + " ON CONFLICT (test_case_id, week) DO UPDATE SET"
+        + " runs = ingest_testweek.runs + excluded.runs, passed = ingest_testweek.passed + excluded.passed,"
+        + " failed = ingest_testweek.failed + excluded.failed, errors = ingest_testweek.errors + excluded.errors,"
+        + " skipped = ingest_testweek.skipped + excluded.skipped, reruns = ingest_testweek.reruns + excluded.reruns,"
+        + " duration_total = ingest_testweek.duration_total + excluded.duration_total,"
+        + " duration_count = ingest_testweek.duration_count + excluded.duration_count"
+    )
+    with connection.cursor() as cursor:
+        # SQLite needs a WHERE on INSERT ... SELECT ... ON CONFLICT to parse the upsert unambiguously.
+        cursor.execute(sql.replace(" GROUP BY", " AND 1=1 GROUP BY"), [build.id])
+
+
+def rollup_rebuild(*, project: Project, week=None) -> None:
+    """Recompute the rollup of a project (or one week of it) from the results table."""
+    from ingest.models import TestWeek
+
+    with transaction.atomic():
+        qs = TestWeek.objects.filter(project=project)
+        params: list = [project.id]
+        where = " WHERE r.project_id = %s"
+        if week is not None:
+            qs = qs.filter(week=week)
+            where += " AND b.week = %s"
+            params.append(week)
+        qs.delete()
+        with connection.cursor() as cursor:
+            cursor.execute(
+                _ROLLUP_INSERT + _ROLLUP_SELECT + where + " GROUP BY r.project_id, r.test_case_id, b.week", params
+            )
+
+
+# --------------------------------------------------------------------------------------------------- reprocess
+def build_results_reset(*, build: Build) -> list[ImportJob]:
+    """Delete a build's results and import records (for re-parsing); returns the jobs that fed it, oldest first."""
+    weeks = {build.week}
+    jobs = list(ImportJob.objects.filter(build=build, kind=ImportJob.Kind.RESULTS).order_by("created_at", "id"))
+    TestResult.objects.filter(build=build).delete()
+    ImportedReport.objects.filter(build=build).delete()
+    for week in weeks:
+        rollup_rebuild(project=build.project, week=week)
+    return jobs
+
+
+def reports_from_path(path: Path) -> list[Path]:
+    """The report files a CLI path stands for: a file, a .zip, or every *.xml below a directory."""
+    if path.is_dir():
+        found = sorted(p for p in path.rglob("*.xml") if p.is_file())
+        if not found:
+            raise ResultsImportError(ERR_NO_REPORTS.format(name=str(path)))
+        return found
+    if not path.exists():
+        raise ResultsImportError(f"{path}: no such file or directory")
+    return [path]
