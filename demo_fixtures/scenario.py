@@ -233,6 +233,8 @@ def build_catalogue(params: ScenarioParams, rng: np.random.Generator) -> Catalog
         for j in range(n_classes):
             subject, aspect = combos[int(order[j % len(combos)])]
             part = "" if j < len(combos) else f"Part{j // len(combos) + 1}"
+            if part and comp.dialect == "pytest":
+                part = f"_part{j // len(combos) + 1}"
             if comp.dialect == "pytest":
                 classname = f"{comp.package}.{subject}{part}" + (f".{aspect}" if aspect else "")
                 suite_pkg = comp.package
