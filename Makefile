@@ -28,6 +28,8 @@ migrate: venv
 	$(PY) manage.py migrate --noinput
 
 demo: venv migrate
+	$(PY) manage.py load_demo
+	@echo "Serving on http://127.0.0.1:$(PORT)/ (stop with Ctrl-C)"
 	$(PY) manage.py runserver 127.0.0.1:$(PORT)
 
 clean:

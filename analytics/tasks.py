@@ -21,3 +21,11 @@ def refresh_all_projects() -> int:
     from analytics.services.flaky import flaky_scores_refresh
 
     return sum(flaky_scores_refresh(project_id=pid) for pid in Project.objects.values_list("pk", flat=True))
+
+
+@shared_task(acks_late=True, time_limit=6 * 3600)
+def refresh_project(project_id: int) -> int:
+    """Full refresh of one project (after a backfill, or on demand)."""
+    from analytics.services.flaky import flaky_scores_refresh
+
+    return flaky_scores_refresh(project_id=project_id)

@@ -111,6 +111,8 @@ BAROMETER_MAX_UPLOAD_BYTES = env.int("BAROMETER_MAX_UPLOAD_BYTES", default=250 *
 DATA_UPLOAD_MAX_MEMORY_SIZE = 10 * 1024 * 1024
 FILE_UPLOAD_MAX_MEMORY_SIZE = 5 * 1024 * 1024
 FILE_UPLOAD_TEMP_DIR = env.str("FILE_UPLOAD_TEMP_DIR", default=None)
+# Embedded mode: run queued tasks in a background thread of the web process (live import progress).
+BAROMETER_EAGER_IN_THREAD = env.bool("BAROMETER_EAGER_IN_THREAD", default=True)
 # Analytics: how many consecutive green runs make a quarantined test a candidate for release.
 BAROMETER_RELEASE_AFTER_GREEN_RUNS = env.int("BAROMETER_RELEASE_AFTER_GREEN_RUNS", default=30)
 

@@ -241,11 +241,12 @@ def _build_get_or_create(project: Project, meta: BuildMeta, fallback_started: da
     return build
 
 
-def results_job_run(*, job: ImportJob, progress: bool = True) -> ImportCounts:
+def results_job_run(*, job: ImportJob, progress: bool = True, refresh: bool = True) -> ImportCounts:
     """Parse and write every report of ``job`` into its build, in ONE transaction.
 
     Idempotent: a report whose content was already imported into the same build is skipped. Any parse error
     rolls the whole job back (no partial rows) and marks the job failed with a message naming the file.
+    ``refresh=False`` skips the per-build analytics refresh (a backfill runs one refresh at the end instead).
     """
     job.status = ImportJob.Status.RUNNING
     job.started_at = timezone.now()
@@ -276,7 +277,7 @@ def results_job_run(*, job: ImportJob, progress: bool = True) -> ImportCounts:
             job.progress = 1.0
             job.finished_at = timezone.now()
             job.save()
-            if writer.new_results:
+            if writer.new_results and refresh:
                 from ingest.hooks import after_results_import
 
                 transaction.on_commit(lambda: after_results_import(project_id=job.project_id, build_id=build.id))

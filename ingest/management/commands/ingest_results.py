@@ -79,7 +79,7 @@ class Command(BaseCommand):
             total = self._one_build(project, meta, opts["paths"])
         self._summary(total)
 
-    def _one_build(self, project: Project, meta: BuildMeta, paths: list[Path]) -> ImportCounts:
+    def _one_build(self, project: Project, meta: BuildMeta, paths: list[Path], *, refresh: bool = True) -> ImportCounts:
         try:
             files = [p for path in paths for p in reports_from_path(path)]
             handles = [open(p, "rb") for p in files]
@@ -90,7 +90,7 @@ class Command(BaseCommand):
             finally:
                 for h in handles:
                     h.close()
-            return results_job_run(job=job)
+            return results_job_run(job=job, refresh=refresh)
         except ResultsImportError as exc:
             raise CommandError(str(exc)) from exc
 
@@ -109,10 +109,16 @@ class Command(BaseCommand):
                 build=build_id, commit=str(first.get("commit") or ""), branch=str(first.get("branch") or ""),
                 ci_job=str(first.get("ci_job") or ""), started=str(first.get("started") or ""),
             )
-            counts = self._one_build(project, meta, [r["_path"] for r in build_rows])
+            counts = self._one_build(project, meta, [r["_path"] for r in build_rows], refresh=False)
             for key, value in counts.as_dict().items():
                 setattr(total, key, getattr(total, key) + value)
             total.warnings.extend(counts.warnings)
+        if total.tests:
+            # One analytics refresh for the whole backfill instead of one per build.
+            from analytics.tasks import refresh_project
+            from ingest.dispatch import task_enqueue
+
+            task_enqueue(refresh_project, project.pk)
         return total
 
     def _summary(self, c: ImportCounts) -> None:
