@@ -4,28 +4,31 @@ from __future__ import annotations
 
 from celery import shared_task
 
-from ingest.models import Project, TestResult
+from ingest.models import Project
 
 
 @shared_task(acks_late=True, time_limit=3600)
-def refresh_after_build(project_id: int, build_id: int) -> int:
-    """Incremental refresh after an ingest: re-score only the tests the new build touched."""
-    from analytics.services.flaky import flaky_scores_refresh
+def refresh_after_build(project_id: int, build_id: int) -> dict:
+    """Incremental refresh after an ingest: only what the new build touched."""
+    from analytics.services.refresh import analytics_refresh_after_build
 
-    test_ids = set(TestResult.objects.filter(build_id=build_id).values_list("test_case_id", flat=True))
-    return flaky_scores_refresh(project_id=project_id, test_ids=test_ids)
+    return analytics_refresh_after_build(project_id=project_id, build_id=build_id)
+
+
+@shared_task(acks_late=True, time_limit=6 * 3600)
+def refresh_project(project_id: int) -> dict:
+    """Full refresh of one project (after a backfill, a defect import, or on demand)."""
+    from analytics.services.refresh import analytics_refresh
+
+    return analytics_refresh(project_id=project_id)
 
 
 @shared_task(acks_late=True, time_limit=6 * 3600)
 def refresh_all_projects() -> int:
-    from analytics.services.flaky import flaky_scores_refresh
+    """The scheduled full refit (Celery beat)."""
+    from analytics.services.refresh import analytics_refresh
 
-    return sum(flaky_scores_refresh(project_id=pid) for pid in Project.objects.values_list("pk", flat=True))
-
-
-@shared_task(acks_late=True, time_limit=6 * 3600)
-def refresh_project(project_id: int) -> int:
-    """Full refresh of one project (after a backfill, or on demand)."""
-    from analytics.services.flaky import flaky_scores_refresh
-
-    return flaky_scores_refresh(project_id=project_id)
+    pids = list(Project.objects.values_list("pk", flat=True))
+    for pid in pids:
+        analytics_refresh(project_id=pid)
+    return len(pids)

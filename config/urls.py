@@ -12,4 +12,11 @@ urlpatterns = [
     path("accounts/logout/", auth_views.LogoutView.as_view(), name="logout"),
     path("api/schema/", SpectacularAPIView.as_view(), name="api-schema"),
     path("api/v1/", include("ingest.api.urls")),
+    path("api/v1/", include("analytics.api.urls")),
+    # Dashboard pages, per project.
+    path("p/<slug:slug>/", include("analytics.views.overview")),
+    path("p/<slug:slug>/flaky/", include("analytics.views.flaky")),
+    path("p/<slug:slug>/causes/", include("analytics.views.causes")),
+    path("p/<slug:slug>/forecasts/", include("analytics.views.forecasts")),
+    path("p/<slug:slug>/imports/", include("ingest.views")),
 ]

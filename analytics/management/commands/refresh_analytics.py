@@ -2,16 +2,14 @@
 
 from __future__ import annotations
 
-import time
-
 from django.core.management.base import BaseCommand, CommandError
 
-from analytics.services.flaky import flaky_scores_refresh
+from analytics.services.refresh import analytics_refresh
 from ingest.models import Project
 
 
 class Command(BaseCommand):
-    help = "Recompute every analytics result of a project now (flaky-test scores)."
+    help = "Recompute every analytics result of a project now (flaky tests, failure causes, forecasts)."
 
     def add_arguments(self, parser):
         parser.add_argument("--project", required=True)
@@ -20,6 +18,5 @@ class Command(BaseCommand):
         project = Project.objects.filter(slug=opts["project"]).first()
         if project is None:
             raise CommandError(f"no project with slug {opts['project']!r}")
-        started = time.perf_counter()
-        n = flaky_scores_refresh(project_id=project.pk)
-        self.stdout.write(f"flaky-test scores: {n} tests scored in {time.perf_counter() - started:.1f} s")
+        for detector, (count, seconds) in analytics_refresh(project_id=project.pk).items():
+            self.stdout.write(f"{detector}: {count} rows written in {seconds:.1f} s")

@@ -1,0 +1,1 @@
+"""REST endpoints of the analytics app (flaky tests, quarantine, failure causes, forecasts)."""

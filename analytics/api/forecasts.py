@@ -1,0 +1,5 @@
+"""API endpoints: forecasts (see analytics/api/urls.py for the prefix)."""
+
+from __future__ import annotations
+
+urlpatterns: list = []

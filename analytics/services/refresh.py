@@ -1,0 +1,51 @@
+"""One entry point that runs every detector of a project, in order, and records each run."""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable
+
+from django.utils import timezone
+
+from analytics.models import AnalyticsRun
+
+
+def _recorded(*, project_id: int, detector: str, scope: str, run: Callable[[], int]) -> tuple[int, float]:
+    record = AnalyticsRun.objects.create(project_id=project_id, detector=detector, scope=scope,
+                                         started_at=timezone.now())
+    started = time.perf_counter()
+    try:
+        count = run()
+    except Exception as exc:
+        record.finished_at, record.details = timezone.now(), {"error": f"{type(exc).__name__}: {exc}"}
+        record.save(update_fields=["finished_at", "details"])
+        raise
+    seconds = time.perf_counter() - started
+    record.finished_at, record.ok = timezone.now(), True
+    record.details = {"count": count, "seconds": round(seconds, 3)}
+    record.save(update_fields=["finished_at", "ok", "details"])
+    return count, seconds
+
+
+def analytics_refresh(*, project_id: int) -> dict[str, tuple[int, float]]:
+    """Full refresh: every detector on the whole window. Returns {detector: (rows written, seconds)}."""
+    from analytics.services.flaky import flaky_scores_refresh
+
+    steps: dict[str, Callable[[], int]] = {
+        "flaky": lambda: flaky_scores_refresh(project_id=project_id),
+    }
+    return {name: _recorded(project_id=project_id, detector=name, scope="full", run=run)
+            for name, run in steps.items()}
+
+
+def analytics_refresh_after_build(*, project_id: int, build_id: int) -> dict[str, tuple[int, float]]:
+    """Incremental refresh after one build: cost grows with the build, not with the history."""
+    from analytics.services.flaky import flaky_scores_refresh
+    from ingest.models import TestResult
+
+    test_ids = set(TestResult.objects.filter(build_id=build_id).values_list("test_case_id", flat=True))
+    steps: dict[str, Callable[[], int]] = {
+        "flaky": lambda: flaky_scores_refresh(project_id=project_id, test_ids=test_ids),
+    }
+    return {name: _recorded(project_id=project_id, detector=name, scope="build", run=run)
+            for name, run in steps.items()}

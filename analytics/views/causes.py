@@ -1,0 +1,5 @@
+"""Dashboard pages: causes."""
+
+from __future__ import annotations
+
+urlpatterns: list = []

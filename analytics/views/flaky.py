@@ -1,0 +1,5 @@
+"""Dashboard pages: flaky."""
+
+from __future__ import annotations
+
+urlpatterns: list = []

@@ -1,0 +1,5 @@
+"""Dashboard pages: forecasts."""
+
+from __future__ import annotations
+
+urlpatterns: list = []

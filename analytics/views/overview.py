@@ -1,0 +1,5 @@
+"""Dashboard pages: overview."""
+
+from __future__ import annotations
+
+urlpatterns: list = []

@@ -1,0 +1,5 @@
+"""Dashboard pages of the ingest app: builds, import jobs, defect upload."""
+
+from __future__ import annotations
+
+urlpatterns: list = []
