@@ -103,6 +103,11 @@ USE_TZ = True
 STATIC_URL = "static/"
 STATIC_ROOT = env.path("STATIC_ROOT", default=str(VAR_DIR / "staticfiles"))
 STATICFILES_DIRS = [BASE_DIR / "static"]
+STATICFILES_FINDERS = [
+    "django.contrib.staticfiles.finders.FileSystemFinder",
+    "django.contrib.staticfiles.finders.AppDirectoriesFinder",
+    "barometer_common.staticfinders.PlotlyFinder",  # plotly.js from the plotly package, no CDN
+]
 MEDIA_ROOT = env.path("MEDIA_ROOT", default=str(VAR_DIR / "media"))
 MEDIA_URL = "media/"
 
