@@ -18,6 +18,7 @@ STALE_RUNNING = timedelta(hours=2)
 
 @shared_task(acks_late=True, time_limit=3 * 3600, soft_time_limit=3 * 3600 - 60)
 def process_import_job(job_id: int) -> str:
+    from ingest.services.defects import DefectImportError, defects_job_run
     from ingest.services.results import ResultsImportError, results_job_run
 
     job = ImportJob.objects.select_related("project").filter(pk=job_id).first()
@@ -26,10 +27,13 @@ def process_import_job(job_id: int) -> str:
     if job.status in (ImportJob.Status.DONE, ImportJob.Status.RUNNING):
         return job.status  # delivered twice: nothing to do
     try:
-        if job.kind != ImportJob.Kind.RESULTS:
+        if job.kind == ImportJob.Kind.DEFECTS:
+            defects_job_run(job=job)
+        elif job.kind != ImportJob.Kind.RESULTS:
             return "unsupported"
-        results_job_run(job=job)
-    except ResultsImportError:
+        else:
+            results_job_run(job=job)
+    except (ResultsImportError, DefectImportError):
         pass  # the job is marked failed with its reason
     except Exception:  # noqa: BLE001 - recorded on the job; the worker keeps going
         log.exception("import job %s failed", job_id)
