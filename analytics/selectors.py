@@ -6,7 +6,8 @@ from collections.abc import Iterable
 
 import pandas as pd
 
-from ingest.models import TestResult
+from analytics.models import TestHealth, TriageEvent, TriageState
+from ingest.models import TestCase, TestResult
 
 
 def runs_frame(*, project_id: int, test_ids: Iterable[int] | None = None, since=None) -> pd.DataFrame:
@@ -28,3 +29,48 @@ def runs_frame(*, project_id: int, test_ids: Iterable[int] | None = None, since=
     frame["started_at"] = pd.to_datetime(frame["started_at"], utc=True)
     frame["duration"] = frame["duration"].astype(float)
     return frame
+
+
+def flaky_health_qs(
+    *, project_id: int, verdict: str | None = None, component: str | None = None, min_score: float | None = None
+):
+    """Stored flaky-test scores of a project, best suspects first, with test, component and triage joined.
+
+    ``component`` is matched by name, ignoring case; tests without a component match ``component=""``.
+    """
+    qs = TestHealth.objects.filter(project_id=project_id).select_related(
+        "test_case", "test_case__component", "test_case__triage"
+    )
+    if verdict is not None:
+        qs = qs.filter(verdict=verdict)
+    if component is not None:
+        qs = (qs.filter(test_case__component__isnull=True) if component == ""
+              else qs.filter(test_case__component__name__iexact=component))
+    if min_score is not None:
+        qs = qs.filter(score__gte=min_score)
+    return qs.order_by("-score", "test_case__classname", "test_case__name", "test_case_id")
+
+
+def quarantined_tests_qs(*, project_id: int):
+    """Test cases of a project whose triage state is quarantined, by classname and name."""
+    return (
+        TestCase.objects.filter(project_id=project_id, triage__state=TriageState.QUARANTINED)
+        .select_related("component", "triage", "triage__updated_by")
+        .order_by("classname", "name")
+    )
+
+
+def triage_events_qs(*, test_case_id: int):
+    """The audit log of one test, newest first, with who made each change."""
+    return TriageEvent.objects.filter(test_case_id=test_case_id).select_related("user").order_by("-at", "-id")
+
+
+def testcase_by_ref(*, project_id: int, ref: str):
+    """The test case named by ``ref`` = ``classname::name`` (or just ``name`` when it has no classname).
+
+    The classname is the part before the first ``::``. Returns ``None`` when there is no such test.
+    """
+    classname, sep, name = ref.partition("::")
+    if not sep:
+        classname, name = "", ref
+    return TestCase.objects.filter(project_id=project_id, classname=classname, name=name).first()

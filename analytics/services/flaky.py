@@ -11,8 +11,15 @@ from django.db import transaction
 from django.utils import timezone
 
 from analytics.core.flaky import DEFAULT_EVIDENCE_CONFIG, score_tests
-from analytics.models import TestHealth
-from analytics.selectors import runs_frame
+from analytics.models import TestHealth, TriageState
+from analytics.selectors import flaky_health_qs, runs_frame
+from analytics.services.triage import triage_green_runs_refresh, triage_labels
+from ingest.models import Project
+
+#: Seed of the classifier's cross-validation folds: the same data always gives the same scores.
+RANDOM_STATE = 0
+#: Labelled tests of each class below which the classifier is not even tried (``choose_scorer``'s default).
+MIN_LABELS_PER_CLASS = 20
 
 EVIDENCE_FIELDS = (
     "same_commit_contradictions", "pass_on_rerun", "flip_rate", "entropy", "runs_z", "runs_p", "failure_rate",
@@ -32,13 +39,35 @@ def _jsonable(value):
 
 
 def flaky_scores_refresh(*, project_id: int, test_ids: Iterable[int] | None = None) -> int:
-    """Score the given tests (or all tests) of a project; returns how many were stored."""
+    """Score the given tests (or all tests) of a project and store their ``TestHealth`` rows.
+
+    People's triage decisions are the labels (confirmed flaky and quarantined = flaky, not flaky = not
+    flaky): when there are enough of them, ``score_tests`` trains the labelled classifier and uses it if it
+    beats the unsupervised score on held-out labels; ``TestHealth.scored_by`` records which one scored each
+    test. So that an incremental refresh scores like a full one, the labelled tests' runs are loaded (and
+    their rows rewritten) too whenever the classifier may be tried. The fold seed is fixed
+    (:data:`RANDOM_STATE`): refreshing twice on unchanged data stores the same numbers.
+
+    Also recounts the green runs of quarantined tests among them (release suggestions).
+
+    Returns
+    -------
+    int
+        How many ``TestHealth`` rows were written.
+    """
     now = pd.Timestamp(timezone.now())
-    since = timezone.now() - timedelta(days=DEFAULT_EVIDENCE_CONFIG.window_days)
-    runs = runs_frame(project_id=project_id, test_ids=test_ids, since=since)
+    since = now.to_pydatetime() - timedelta(days=DEFAULT_EVIDENCE_CONFIG.window_days)
+    labels = triage_labels(project_id=project_id)
+    per_class = labels.value_counts()
+    may_train = min(int(per_class.get(0, 0)), int(per_class.get(1, 0))) >= MIN_LABELS_PER_CLASS
+    load_ids = None if test_ids is None else set(test_ids)
+    if load_ids is not None and may_train:
+        load_ids |= {int(i) for i in labels.index}
+    runs = runs_frame(project_id=project_id, test_ids=load_ids, since=since)
+    triage_green_runs_refresh(project_id=project_id, test_ids=test_ids)
     if runs.empty:
         return 0
-    scored = score_tests(runs, now=now)
+    scored = score_tests(runs, now=now, labels=labels if len(labels) else None, random_state=RANDOM_STATE)
     recent = (
         runs.sort_values(["started_at", "build_id", "attempt"])
         .groupby("test_id")["outcome"]
@@ -74,3 +103,47 @@ def flaky_scores_refresh(*, project_id: int, test_ids: Iterable[int] | None = No
             batch_size=1000,
         )
     return len(objs)
+
+
+#: Evidence figures in the export and the API, in this order (see ``analytics.core.flaky.evidence_frame``).
+EXPORT_EVIDENCE = EVIDENCE_FIELDS
+
+
+def testcase_ref(test_case) -> str:
+    """The id CI uses for a test: ``classname::name`` (just ``name`` when the test has no classname)."""
+    return test_case.full_name
+
+
+def flaky_row(health: TestHealth) -> dict:
+    """One flat row: the test, its score and verdict, its triage state and the main evidence figures."""
+    test = health.test_case
+    triage = getattr(test, "triage", None)
+    row = {
+        "id": testcase_ref(test),
+        "classname": test.classname,
+        "name": test.name,
+        "component": test.component.name if test.component_id else "",
+        "score": round(float(health.score), 6),
+        "verdict": health.verdict,
+        "scored_by": health.scored_by,
+        "triage_state": triage.state if triage is not None else TriageState.UNREVIEWED.value,
+        "runs": health.runs,
+        "failures": health.failures,
+        "last_failure_at": health.last_failure_at,
+        "recent_outcomes": health.recent_outcomes,
+    }
+    evidence = health.evidence or {}
+    row.update({key: evidence.get(key) for key in EXPORT_EVIDENCE})
+    row["computed_at"] = health.computed_at
+    return row
+
+
+def flaky_export_rows(*, project: Project) -> list[dict]:
+    """Every scored test of ``project``, most likely flaky first, as flat rows (see :func:`flaky_row`).
+
+    Keys: ``id`` (``classname::name``), ``classname``, ``name``, ``component``, ``score`` (P(flaky)),
+    ``verdict``, ``scored_by``, ``triage_state``, ``runs``, ``failures``, ``last_failure_at``,
+    ``recent_outcomes`` (latest runs, oldest first: P passed, F failed, E error), the figures in
+    :data:`EXPORT_EVIDENCE` and ``computed_at``. Tests never scored (no refresh since they appeared) are absent.
+    """
+    return [flaky_row(h) for h in flaky_health_qs(project_id=project.pk)]
