@@ -1,12 +1,13 @@
 from django.contrib import admin
 from django.contrib.auth import views as auth_views
 from django.urls import include, path
-from django.views.generic import RedirectView
 from drf_spectacular.views import SpectacularAPIView
 
+from analytics.views import overview as overview_views
+
 urlpatterns = [
-    # The dashboard pages are not built yet: the admin site is the way in for now.
-    path("", RedirectView.as_view(url="/admin/", permanent=False)),
+    # Signed-in people land on a project's "This week" page (the switcher sends ?project=<slug> here).
+    path("", overview_views.home, name="home"),
     path("admin/", admin.site.urls),
     path("accounts/login/", auth_views.LoginView.as_view(), name="login"),
     path("accounts/logout/", auth_views.LogoutView.as_view(), name="logout"),

@@ -1,0 +1,267 @@
+"""Reads behind the "This week" page: rollups (TestWeek, TestHealth, Defect counts) → DataFrames and dicts.
+
+Nothing here scans the raw results table: every figure comes from the per-test weekly rollup kept by ingest
+(``TestWeek``), the latest flakiness scores (``TestHealth``) or the defects table, so the page's cost grows
+with the number of tests and weeks shown, not with the history. The number of queries is fixed (the view
+tests pin it).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from datetime import UTC, date, datetime, time, timedelta
+
+import pandas as pd
+from django.db.models import Count, Exists, F, FloatField, OuterRef, Q, QuerySet, Sum, Value
+from django.db.models.functions import Cast, Coalesce, NullIf, TruncWeek
+
+from analytics.models import TestHealth
+from ingest.models import Build, Defect, TestWeek, week_start
+
+TREND_WEEKS = 26
+GROWTH_WINDOW = 4  # weeks compared on each side for the test-time growth
+GROWTH_TOP = 8
+ROW_KINDS = ("failed", "newly-failing", "fixed", "tests", "defects-opened", "defects-closed", "backlog", "flaky")
+
+_FAILING = Q(failed__gt=0) | Q(errors__gt=0)
+
+
+@dataclass(frozen=True)
+class Scope:
+    """What the page shows: one project, one week (a Monday), optionally one component."""
+
+    project_id: int
+    week: date
+    component_id: int | None = None
+
+    @property
+    def previous(self) -> Scope:
+        return Scope(self.project_id, self.week - timedelta(weeks=1), self.component_id)
+
+
+def _moment(day: date) -> datetime:
+    return datetime.combine(day, time.min, tzinfo=UTC)
+
+
+def weeks_with_builds(*, project_id: int, limit: int = 104) -> list[date]:
+    """Mondays of the weeks that have builds, newest first (the week picker's choices)."""
+    weeks = (
+        Build.objects.filter(project_id=project_id).order_by("-week").values_list("week", flat=True).distinct()
+    )
+    return list(weeks[:limit])
+
+
+def default_week(weeks: list[date], *, today: date) -> date | None:
+    """The last complete week (Monday to Sunday before ``today``'s week) that has data, else the newest."""
+    if not weeks:
+        return None
+    current = week_start(today)
+    complete = [w for w in weeks if w < current]
+    return max(complete) if complete else max(weeks)
+
+
+def _testweeks(scope: Scope) -> QuerySet:
+    qs = TestWeek.objects.filter(project_id=scope.project_id)
+    if scope.component_id is not None:
+        qs = qs.filter(test_case__component_id=scope.component_id)
+    return qs
+
+
+def _defects(scope: Scope) -> QuerySet:
+    qs = Defect.objects.filter(project_id=scope.project_id)
+    if scope.component_id is not None:
+        qs = qs.filter(components__id=scope.component_id)
+    return qs
+
+
+def weekly_runs_frame(scope: Scope, *, weeks: int = TREND_WEEKS) -> pd.DataFrame:
+    """One row per week up to ``scope.week``: runs, passed, failed, errors, skipped, tests, duration (s).
+
+    ``pass_rate`` is passed / (runs − skipped): skipped runs say nothing about quality. Weeks without
+    runs are present with zeros and a missing pass rate, so a gap shows as a gap.
+    """
+    first = scope.week - timedelta(weeks=weeks - 1)
+    rows = (
+        _testweeks(scope)
+        .filter(week__gte=first, week__lte=scope.week)
+        .values("week")
+        .annotate(
+            n_runs=Sum("runs"), n_passed=Sum("passed"), n_failed=Sum("failed"), n_errors=Sum("errors"),
+            n_skipped=Sum("skipped"), n_tests=Count("id", filter=Q(runs__gt=0)), n_duration=Sum("duration_total"),
+        )
+        .order_by("week")
+    )
+    index = pd.Index([first + timedelta(weeks=i) for i in range(weeks)], name="week")
+    columns = ["runs", "passed", "failed", "errors", "skipped", "tests", "duration"]
+    frame = pd.DataFrame.from_records(
+        [(r["week"], *(r["n_" + c] for c in columns)) for r in rows], columns=["week", *columns]
+    )
+    frame = frame.set_index("week").reindex(index).fillna(0)
+    frame[columns[:-1]] = frame[columns[:-1]].astype(int)
+    frame["duration"] = frame["duration"].astype(float)
+    judged = frame["runs"] - frame["skipped"]
+    frame["pass_rate"] = (frame["passed"] / judged.where(judged > 0)).astype(float)
+    frame["failed_runs"] = frame["failed"] + frame["errors"]
+    return frame.reset_index()
+
+
+def component_failures_frame(scope: Scope, *, weeks: int = TREND_WEEKS) -> pd.DataFrame:
+    """Failed runs (failures + errors) per week and component: columns week, component, failures."""
+    first = scope.week - timedelta(weeks=weeks - 1)
+    rows = (
+        _testweeks(scope)
+        .filter(week__gte=first, week__lte=scope.week)
+        .filter(_FAILING)
+        .values("week", component=Coalesce("test_case__component__name", Value("(no component)")))
+        .annotate(failures=Sum(F("failed") + F("errors")))
+        .order_by("week", "component")
+    )
+    return pd.DataFrame.from_records(list(rows), columns=["week", "component", "failures"])
+
+
+def _newly_failing(scope: Scope) -> QuerySet:
+    before = _testweeks(scope.previous).filter(test_case_id=OuterRef("test_case_id"), week=scope.previous.week)
+    return _testweeks(scope).filter(week=scope.week).filter(_FAILING).exclude(Exists(before.filter(_FAILING)))
+
+
+def _fixed(scope: Scope) -> QuerySet:
+    before = _testweeks(scope.previous).filter(test_case_id=OuterRef("test_case_id"), week=scope.previous.week)
+    return (
+        _testweeks(scope)
+        .filter(week=scope.week, failed=0, errors=0, passed__gt=0)
+        .filter(Exists(before.filter(_FAILING)))
+    )
+
+
+def transitions(scope: Scope) -> dict[str, int]:
+    """Tests newly failing (failed this week, not in the previous one) and fixed (the reverse, and passed)."""
+    return {"newly_failing": _newly_failing(scope).count(), "fixed": _fixed(scope).count()}
+
+
+def defect_counts(scope: Scope) -> dict[str, int]:
+    """Defects opened and closed in the week and in the week before, and the open backlog at each week's end."""
+    start, prev_start = _moment(scope.week), _moment(scope.previous.week)
+    end = start + timedelta(weeks=1)
+
+    def backlog_at(moment: datetime) -> Q:
+        return Q(created_at__lt=moment) & (Q(resolved_at__isnull=True) | Q(resolved_at__gte=moment))
+
+    return _defects(scope).aggregate(
+        opened=Count("id", filter=Q(created_at__gte=start, created_at__lt=end), distinct=True),
+        closed=Count("id", filter=Q(resolved_at__gte=start, resolved_at__lt=end), distinct=True),
+        backlog=Count("id", filter=backlog_at(end), distinct=True),
+        prev_opened=Count("id", filter=Q(created_at__gte=prev_start, created_at__lt=start), distinct=True),
+        prev_closed=Count("id", filter=Q(resolved_at__gte=prev_start, resolved_at__lt=start), distinct=True),
+        prev_backlog=Count("id", filter=backlog_at(start), distinct=True),
+    )
+
+
+def flaky_share(scope: Scope) -> dict[str, int]:
+    """Tests with a current score and how many of them the detector calls flaky (the latest scores only)."""
+    qs = TestHealth.objects.filter(project_id=scope.project_id)
+    if scope.component_id is not None:
+        qs = qs.filter(test_case__component_id=scope.component_id)
+    return qs.aggregate(scored=Count("id"), flaky=Count("id", filter=Q(verdict="flaky")))
+
+
+def defect_flow_frame(scope: Scope, *, weeks: int = TREND_WEEKS) -> pd.DataFrame:
+    """Defects opened and closed per week (columns week, opened, closed), every week present."""
+    first = scope.week - timedelta(weeks=weeks - 1)
+    start, end = _moment(first), _moment(scope.week + timedelta(weeks=1))
+    index = pd.Index([first + timedelta(weeks=i) for i in range(weeks)], name="week")
+    frame = pd.DataFrame(index=index)
+    for column, field in (("opened", "created_at"), ("closed", "resolved_at")):
+        rows = (
+            _defects(scope)
+            .filter(**{f"{field}__gte": start, f"{field}__lt": end})
+            .annotate(w=TruncWeek(field, tzinfo=UTC))
+            .values("w")
+            .annotate(n=Count("id", distinct=True))
+            .order_by("w")
+        )
+        counts = {(r["w"].date() if isinstance(r["w"], datetime) else r["w"]): r["n"] for r in rows}
+        frame[column] = [int(counts.get(w, 0)) for w in index]
+    return frame.reset_index()
+
+
+def duration_growth_frame(scope: Scope, *, window: int = GROWTH_WINDOW, top: int = GROWTH_TOP) -> pd.DataFrame:
+    """Tests whose mean run time grew most: the last ``window`` weeks up to ``scope.week`` against the
+    ``window`` weeks before. Columns: test_id, test, component, before, recent, growth (seconds per run).
+    """
+    recent_from = scope.week - timedelta(weeks=window - 1)
+    before_from = recent_from - timedelta(weeks=window)
+    in_recent = Q(week__gte=recent_from)
+    in_before = Q(week__lt=recent_from)
+    rows = (
+        _testweeks(scope)
+        .filter(week__gte=before_from, week__lte=scope.week, duration_count__gt=0)
+        .values("test_case_id", "test_case__classname", "test_case__name", "test_case__component__name")
+        .annotate(
+            recent=Cast(Sum("duration_total", filter=in_recent), FloatField())
+            / NullIf(Sum("duration_count", filter=in_recent), 0),
+            before=Cast(Sum("duration_total", filter=in_before), FloatField())
+            / NullIf(Sum("duration_count", filter=in_before), 0),
+        )
+        .filter(recent__isnull=False, before__isnull=False)
+        .annotate(growth=F("recent") - F("before"))
+        .filter(growth__gt=0)
+        .order_by("-growth", "test_case_id")[:top]
+    )
+    frame = pd.DataFrame.from_records(
+        [(r["test_case_id"], r["test_case__classname"], r["test_case__name"], r["test_case__component__name"],
+          r["before"], r["recent"], r["growth"]) for r in rows],
+        columns=["test_id", "classname", "name", "component", "before", "recent", "growth"],
+    )
+    frame["test"] = [f"{c}::{n}" if c else n for c, n in zip(frame["classname"], frame["name"])]
+    frame["component"] = frame["component"].fillna("(no component)")
+    return frame[["test_id", "test", "component", "before", "recent", "growth"]]
+
+
+# --------------------------------------------------------------------------------------------------- rows
+def rows_queryset(scope: Scope, kind: str) -> QuerySet:
+    """The rows behind one headline figure, as dicts (for the table and its CSV/JSON download)."""
+    test_fields = dict(
+        test_id=F("test_case_id"), classname=F("test_case__classname"), name=F("test_case__name"),
+        component=F("test_case__component__name"),
+    )
+    week_values = ("test_id", "classname", "name", "component", "runs", "passed", "failures", "skipped",
+                   "reruns", "seconds")
+    week_extra = dict(failures=F("failed") + F("errors"), seconds=F("duration_total"))
+    if kind in ("failed", "newly-failing", "fixed", "tests"):
+        base = {
+            "failed": _testweeks(scope).filter(week=scope.week).filter(_FAILING),
+            "newly-failing": _newly_failing(scope),
+            "fixed": _fixed(scope),
+            "tests": _testweeks(scope).filter(week=scope.week, runs__gt=0),
+        }[kind]
+        return base.annotate(**test_fields, **week_extra).values(*week_values)
+    if kind == "flaky":
+        qs = TestHealth.objects.filter(project_id=scope.project_id, verdict="flaky")
+        if scope.component_id is not None:
+            qs = qs.filter(test_case__component_id=scope.component_id)
+        return qs.annotate(**test_fields).values(
+            "test_id", "classname", "name", "component", "score", "verdict", "runs", "failures", "last_failure_at"
+        )
+    start = _moment(scope.week)
+    end = start + timedelta(weeks=1)
+    defects = {
+        "defects-opened": Q(created_at__gte=start, created_at__lt=end),
+        "defects-closed": Q(resolved_at__gte=start, resolved_at__lt=end),
+        "backlog": Q(created_at__lt=end) & (Q(resolved_at__isnull=True) | Q(resolved_at__gte=end)),
+    }
+    if kind not in defects:
+        raise ValueError(f"unknown row kind {kind!r}; known: {', '.join(ROW_KINDS)}")
+    return (
+        _defects(scope).filter(defects[kind]).distinct()
+        .values("key", "title", "status", "severity", "created_at", "resolved_at")
+    )
+
+
+ROW_SORTS = {
+    "tests": {"name": "name", "component": "component", "runs": "runs", "failures": "failures",
+              "seconds": "seconds", "reruns": "reruns"},
+    "flaky": {"name": "name", "component": "component", "score": "score", "runs": "runs", "failures": "failures",
+              "last_failure": "last_failure_at"},
+    "defects": {"key": "key", "created": "created_at", "resolved": "resolved_at", "severity": "severity",
+                "status": "status"},
+}
