@@ -18,10 +18,11 @@ from dataclasses import dataclass, field
 from datetime import datetime
 from typing import IO, Any, BinaryIO
 
-from django.db import transaction
+from django.db import connection, transaction
 from django.utils import timezone
 
 from barometer_common.csvsafe import write_safe_csv
+from ingest.bulk import rows_bulk_insert
 from ingest.models import Defect, DefectColumnMap, ImportJob, Project, StoredFile
 from ingest.parsers.defects import (
     ColumnMap,
@@ -71,6 +72,7 @@ _FIELDS = (
     "labels",
 )
 _LIMITED = ("status", "severity", "priority", "type", "found_in", "fixed_in", "reporter", "assignee")
+_MAX_LENGTH = {name: Defect._meta.get_field(name).max_length for name in _LIMITED}
 
 
 class DefectImportError(Exception):
@@ -154,7 +156,7 @@ class _DefectWriter:
         self.truncated: dict[str, list[int]] = {}  # field -> [count, first line]
 
     def _limit(self, row: DefectRow, name: str, value: str) -> str:
-        limit = Defect._meta.get_field(name).max_length
+        limit = _MAX_LENGTH[name]
         if len(value) <= limit:
             return value
         seen = self.truncated.setdefault(name, [0, row.line])
@@ -176,6 +178,24 @@ class _DefectWriter:
             values[name] = self._limit(row, name, getattr(row, name))
         return values
 
+    def _insert(self, new: list[tuple[str, dict]]) -> None:
+        """New defects through the bulk-load path (COPY / executemany): the ORM's per-value work is the cost."""
+        names = list(new[0][1])
+        columns = ["project_id", "key", "first_imported", "last_imported", "last_import_job_id"]
+        columns += [Defect._meta.get_field(name).column for name in names]
+        stamp = connection.ops.adapt_datetimefield_value(self.now)
+
+        def db(name: str, value: Any) -> Any:
+            if isinstance(value, datetime):
+                return connection.ops.adapt_datetimefield_value(value)
+            return json.dumps(value) if name == "labels" else value
+
+        rows = (
+            [self.project.pk, key, stamp, stamp, self.job.pk, *(db(n, values[n]) for n in names)]
+            for key, values in new
+        )
+        rows_bulk_insert(table=Defect._meta.db_table, columns=columns, rows=rows)
+
     def write(self, batch: list[DefectRow]) -> None:
         existing: dict[str, Defect] = {}
         keys = [r.key for r in batch]
@@ -191,7 +211,7 @@ class _DefectWriter:
             ).values_list("defect_id", "component_id"):
                 linked.setdefault(defect_id, set()).add(component_id)
 
-        new: list[Defect] = []
+        new: list[tuple[str, dict]] = []
         changed: list[Defect] = []
         unchanged_ids: list[int] = []
         wanted: dict[str, set[int]] = {}
@@ -202,16 +222,7 @@ class _DefectWriter:
             wanted[row.key] = comps
             defect = existing.get(row.key)
             if defect is None:
-                new.append(
-                    Defect(
-                        project=self.project,
-                        key=row.key,
-                        first_imported=self.now,
-                        last_imported=self.now,
-                        last_import_job=self.job,
-                        **values,
-                    )
-                )
+                new.append((row.key, values))
                 relink_keys.append(row.key)
                 continue
             differs = [name for name, value in values.items() if getattr(defect, name) != value]
@@ -228,17 +239,13 @@ class _DefectWriter:
                 unchanged_ids.append(defect.pk)
 
         if new:
-            Defect.objects.bulk_create(new, batch_size=1000)
-            if any(d.pk is None for d in new):  # backends that do not return ids from bulk inserts
-                new_keys = [d.key for d in new]
-                for start in range(0, len(new_keys), FETCH_CHUNK):
-                    for defect in Defect.objects.filter(
-                        project=self.project, key__in=new_keys[start : start + FETCH_CHUNK]
-                    ).only("id", "key"):
-                        existing[defect.key] = defect
-            for defect in new:
-                if defect.pk is not None:
-                    existing[defect.key] = defect
+            self._insert(new)
+            new_keys = [key for key, _ in new]
+            for start in range(0, len(new_keys), FETCH_CHUNK):
+                for key, pk in Defect.objects.filter(
+                    project=self.project, key__in=new_keys[start : start + FETCH_CHUNK]
+                ).values_list("key", "id"):
+                    existing[key] = Defect(pk=pk, key=key)
         if changed:
             Defect.objects.bulk_update(
                 changed, [*_FIELDS, "last_imported", "last_import_job"], batch_size=500
@@ -251,13 +258,11 @@ class _DefectWriter:
         stale = [pk for pk in relink_ids if pk in linked]
         for start in range(0, len(stale), FETCH_CHUNK):
             self.through.objects.filter(defect_id__in=stale[start : start + FETCH_CHUNK]).delete()
-        links = [
-            self.through(defect_id=existing[k].pk, component_id=c)
-            for k in relink_keys
-            for c in sorted(wanted[k])
-        ]
+        links = [(existing[k].pk, c) for k in relink_keys for c in sorted(wanted[k])]
         if links:
-            self.through.objects.bulk_create(links, batch_size=1000)
+            rows_bulk_insert(
+                table=self.through._meta.db_table, columns=("defect_id", "component_id"), rows=links
+            )
         self.counts.created += len(new)
         self.counts.updated += len(changed)
         self.counts.unchanged += len(unchanged_ids)
