@@ -16,6 +16,9 @@ Reconciliation: bottom-up. The total's expected count is the sum of the componen
 the history's ratio of distinct defects to component memberships (a defect filed under two components
 counts once in the total); see the total's ``note``.
 
+Horizon: the backtest scores models over the requested horizon, so the chosen model can differ between a
+4-week and a 12-week forecast; a shorter request than the stored one reads the stored weeks.
+
 Forecast date: the forecast starts with the week (Monday 00:00 UTC) that holds the data cutoff, the
 latest defect import (today when there is none); weeks with no defect count as zeros.
 """
