@@ -23,6 +23,14 @@ def refresh_project(project_id: int) -> dict:
     return analytics_refresh(project_id=project_id)
 
 
+@shared_task(acks_late=True, time_limit=3600)
+def refresh_after_defects(project_id: int) -> dict:
+    """After a defect import: refit what reads defects."""
+    from analytics.services.refresh import analytics_refresh_after_defects
+
+    return analytics_refresh_after_defects(project_id=project_id)
+
+
 @shared_task(acks_late=True, time_limit=6 * 3600)
 def refresh_all_projects() -> int:
     """The scheduled full refit (Celery beat)."""

@@ -335,11 +335,6 @@ def test_one_component_with_one_defect_in_the_last_complete_week(project):
     _one_defect_checks(project, n_weeks=1)
 
 
-@pytest.mark.xfail(
-    strict=True,
-    reason="core: forecast_components ends the weekly series at the latest defect, not at the week before "
-    "as_of, so quiet weeks after the last defect are missing instead of zeros (change requested in the report)",
-)
 def test_quiet_weeks_between_the_last_defect_and_the_forecast_count_as_zeros(project):
     # Issue 7: "weeks with no defect are zeros, not gaps"; a series starts at the week of its first defect.
     store_defects(project, [("SEN-1", START + timedelta(weeks=2, days=4), ("Berth Sensors",))])

@@ -301,6 +301,11 @@ def forecast_components(
     else:
         raise ValueError(NO_DEFECTS_NO_AS_OF)
     weeks = pd.date_range(forecast_start, periods=int(horizon_weeks), freq=WEEK).astype("datetime64[ns]")
+    if len(counts) and counts["period_start"].min() < forecast_start:
+        # Quiet weeks between the last defect and the forecast date are zeros, not missing.
+        counts = weekly_counts(
+            defects, severity=severity, type=type, components=components, end=forecast_start - WEEK
+        )
     counts = counts[counts["period_start"] < forecast_start]
     names = sorted({*counts["series"].unique(), *(components or ())} - {TOTAL})
 

@@ -48,7 +48,8 @@ class Command(BaseCommand):
             raise CommandError(f"no project with slug {opts['project']!r}")
         extra = {}
         if opts["what"] == "forecast":
-            extra = {"horizon_weeks": opts["horizon_weeks"] or 12, "as_of": opts["as_of"]}
+            horizon = opts["horizon_weeks"] if opts["horizon_weeks"] is not None else 12
+            extra = {"horizon_weeks": horizon, "as_of": opts["as_of"]}
         elif opts["horizon_weeks"] is not None or opts["as_of"] is not None:
             raise CommandError("--horizon-weeks and --as-of apply to --what forecast only")
         try:
