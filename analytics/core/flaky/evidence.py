@@ -208,6 +208,16 @@ def _episodes(fail_touching: np.ndarray) -> np.ndarray:
     return np.flatnonzero(edges == -1) - np.flatnonzero(edges == 1)
 
 
+def _episodes_with_starts(fail_touching: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Lengths and start indices of the maximal blocks of ``True`` in a boolean sequence."""
+    if not fail_touching.any():
+        return np.zeros(0, dtype=int), np.zeros(0, dtype=int)
+    padded = np.concatenate(([0], fail_touching.astype(np.int8), [0]))
+    edges = np.diff(padded)
+    starts = np.flatnonzero(edges == 1)
+    return np.flatnonzero(edges == -1) - starts, starts
+
+
 def _longest_streak(y: np.ndarray) -> tuple[int, int]:
     """Length of the longest block of failures and start index of the last block (-1 if none)."""
     lengths = _episodes(y.astype(bool))
@@ -275,18 +285,23 @@ def _one_test(g: dict[str, np.ndarray], skipped: int, config: EvidenceConfig) ->
     row["pass_on_rerun"] = int(rerun.sum())
     row["rerun_pass_builds"] = tuple(int(b) for b in build_ids[rerun])
 
-    # Failure episodes per branch over (branch, version) in time order.
-    episode_lengths = []
+    # Failure episodes per branch over (branch, version) in time order. A short episode counts as
+    # evidence of flakiness only when passing versions of the same branch lie on both sides of it: a
+    # short-lived branch that failed from its first to its last build (it was based on broken code) or
+    # an episode still open at the end says nothing about intermittency.
+    episode_lengths, short = [], 0
     for branch in pd.unique(g["branch"]):
         on_branch = g["branch"] == branch
         b_codes, b_labels = pd.factorize(versions[on_branch])
         touched = np.bincount(b_codes, weights=y[on_branch], minlength=len(b_labels)) > 0
-        episode_lengths.append(_episodes(touched))
+        lengths_b, starts_b = _episodes_with_starts(touched)
+        episode_lengths.append(lengths_b)
+        bounded = (starts_b > 0) & (starts_b + lengths_b < touched.size)
+        short += int((bounded & (lengths_b <= config.short_episode_max_versions)).sum())
     lengths = np.concatenate(episode_lengths) if episode_lengths else np.zeros(0, dtype=int)
-    short = int((lengths <= config.short_episode_max_versions).sum())
     row["failure_episodes"] = int(lengths.size)
     row["short_episodes"] = short
-    row["long_episodes"] = int(lengths.size - short)
+    row["long_episodes"] = int((lengths > config.short_episode_max_versions).sum())
     row["longest_episode"] = int(lengths.max()) if lengths.size else 0
     row["scattered_episodes"] = max(0, short - 1)
 
@@ -369,8 +384,11 @@ def evidence_frame(
         - ``failing_now``: the latest ``failing_now_runs`` runs all failed.
         - ``failure_episodes``, ``short_episodes``, ``long_episodes``, ``longest_episode``: blocks of
           consecutive versions with a failed run, counted per branch (versions in order of their first run
-          on that branch); short ones span at most ``short_episode_max_versions`` versions.
-          ``scattered_episodes = max(0, short_episodes - 1)``: short episodes beyond the first.
+          on that branch); long ones span more than ``short_episode_max_versions`` versions; short ones
+          span at most that many *and* have a passing version of the same branch before and after them
+          (an episode that opens or closes a branch's history, e.g. a short-lived branch based on broken
+          code, is neither). ``scattered_episodes = max(0, short_episodes - 1)``: short episodes beyond
+          the first.
 
     References
     ----------
