@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Iterable
-from datetime import timedelta
+from datetime import datetime, timedelta
 
 import pandas as pd
 from django.db import transaction
@@ -38,7 +38,9 @@ def _jsonable(value):
     return None if math.isnan(number) or math.isinf(number) else number
 
 
-def flaky_scores_refresh(*, project_id: int, test_ids: Iterable[int] | None = None) -> int:
+def flaky_scores_refresh(
+    *, project_id: int, test_ids: Iterable[int] | None = None, now: datetime | None = None
+) -> int:
     """Score the given tests (or all tests) of a project and store their ``TestHealth`` rows.
 
     People's triage decisions are the labels (confirmed flaky and quarantined = flaky, not flaky = not
@@ -50,12 +52,14 @@ def flaky_scores_refresh(*, project_id: int, test_ids: Iterable[int] | None = No
 
     Also recounts the green runs of quarantined tests among them (release suggestions).
 
+    ``now`` (default: the current time) ends the evidence window; tests pass a fixed moment.
+
     Returns
     -------
     int
         How many ``TestHealth`` rows were written.
     """
-    now = pd.Timestamp(timezone.now())
+    now = pd.Timestamp(now or timezone.now())
     since = now.to_pydatetime() - timedelta(days=DEFAULT_EVIDENCE_CONFIG.window_days)
     labels = triage_labels(project_id=project_id)
     per_class = labels.value_counts()
