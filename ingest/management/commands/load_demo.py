@@ -11,7 +11,7 @@ from pathlib import Path
 from django.conf import settings
 from django.contrib.auth import get_user_model
 from django.contrib.auth.models import Group, Permission
-from django.core.management import call_command, get_commands
+from django.core.management import call_command
 from django.core.management.base import BaseCommand
 from django.db import transaction
 
@@ -21,6 +21,13 @@ from ingest.services.components import components_apply_rules
 DEMO_DIR = Path(settings.BASE_DIR) / "demo_fixtures" / "data"
 DEMO_USER = "demo"
 DEMO_PASSWORD = "harbour-demo-2026"
+DEMO_MAP_NAME = "harbour-desk-export"
+# The three kinds of user (login, password, what they may do). Demo passwords only: change them.
+DEMO_LOGINS = (
+    (DEMO_USER, DEMO_PASSWORD, "admin (staff) and triager"),
+    ("triager", "harbour-triage-2026", "triager: may mark flaky tests, quarantine them, confirm clusters"),
+    ("viewer", "harbour-view-2026", "viewer: may read every page, change nothing"),
+)
 
 
 def demo_roles() -> None:
@@ -50,16 +57,17 @@ class Command(BaseCommand):
         self.stdout.write("importing test results …")
         call_command("ingest_results", manifest=str(data / "manifest.csv"), project=project.slug,
                      no_progress=not sys.stderr.isatty(), stdout=self.stdout)
-        defects = data / "defects.csv"
-        if defects.exists() and "import_defects" in get_commands():
-            self.stdout.write("importing defects …")
-            call_command("import_defects", str(defects), project=project.slug,
-                         mapping_file=data / "defects.columnmap.json", stdout=self.stdout)
+        self.stdout.write("importing defects …")
+        # The real path; the map is saved for the upload page. The full refresh below covers the defects,
+        # so the per-import analytics refresh is skipped (as for the results backfill above).
+        call_command("import_defects", str(data / "defects.csv"), project=project.slug,
+                     mapping_file=data / "defects.columnmap.json", save_mapping=DEMO_MAP_NAME,
+                     no_refresh=True, stdout=self.stdout)
         if not opts["skip_analytics"]:
             call_command("refresh_analytics", project=project.slug, stdout=self.stdout)
         demo_roles()
         if not opts["no_user"]:
-            self._user()
+            self._users()
 
     @transaction.atomic
     def _project(self, layout: dict) -> Project:
@@ -78,15 +86,17 @@ class Command(BaseCommand):
         components_apply_rules(project=project)
         return project
 
-    def _user(self) -> None:
+    def _users(self) -> None:
         User = get_user_model()
-        user, created = User.objects.get_or_create(username=DEMO_USER, defaults={"is_staff": True})
-        if created:
-            user.set_password(DEMO_PASSWORD)
-            user.is_superuser = True
-            user.save()
-            user.groups.add(Group.objects.get(name="triagers"))
-        self.stdout.write(
-            f"\nDemo login: user '{DEMO_USER}', password '{DEMO_PASSWORD}' "
-            "(change it: python manage.py changepassword demo)."
-        )
+        triagers = Group.objects.get(name="triagers")
+        for username, password, _role in DEMO_LOGINS:
+            user, created = User.objects.get_or_create(username=username)
+            if created:
+                user.set_password(password)
+                user.is_staff = user.is_superuser = username == DEMO_USER
+                user.save()
+                if username in (DEMO_USER, "triager"):
+                    user.groups.add(triagers)
+        self.stdout.write("\nDemo logins (demo passwords: change them with python manage.py changepassword USER):")
+        for username, password, role in DEMO_LOGINS:
+            self.stdout.write(f"  {username:<8} / {password:<20} {role}")
