@@ -11,7 +11,7 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 from datetime import datetime
 
-from django.db.models import Count, Prefetch, Q, QuerySet
+from django.db.models import Count, Max, Prefetch, Q, QuerySet
 
 from analytics.models import (
     ClusterDefectLink,
@@ -21,7 +21,7 @@ from analytics.models import (
     TriageEvent,
     TriageState,
 )
-from ingest.models import Component, Outcome, TestCase, TestResult
+from ingest.models import Build, Component, Outcome, TestCase, TestResult
 
 #: Public sort keys of the flaky-test table → ORM field.
 FLAKY_SORTS = {
@@ -265,6 +265,11 @@ def cluster_table_qs(
     return qs.defer("representative_text", "note").prefetch_related(
         Prefetch("defect_links", queryset=links)
     ).order_by(order, "pk")
+
+
+def latest_build_week(*, project_id: int):
+    """Monday of the project's latest build (indexed on ``Build(project, week)``), or None: trends end there."""
+    return Build.objects.filter(project_id=project_id).aggregate(last=Max("week"))["last"]
 
 
 def cluster_table_row(cluster: FailureCluster) -> dict:

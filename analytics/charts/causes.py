@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from collections.abc import Sequence
+from datetime import date, timedelta
 
 import pandas as pd
 import plotly.graph_objects as go
@@ -13,12 +14,30 @@ from analytics.charts import PALETTE, safe_text
 TREND_WEEKS = 4
 
 
-def trend_frame(weekly_trend: Sequence[Sequence]) -> pd.DataFrame:
-    """``FailureCluster.weekly_trend`` (``[[week, failures], …]``) as a frame with ``week`` and ``failures``."""
-    frame = pd.DataFrame(list(weekly_trend or []), columns=["week", "failures"])
-    frame["week"] = frame["week"].astype(str)
-    frame["failures"] = pd.to_numeric(frame["failures"], errors="coerce").fillna(0).astype(int)
-    return frame
+def dense_weekly_counts(weekly_trend: Sequence[Sequence], *, end: date | None = None) -> list[tuple[date, int]]:
+    """``FailureCluster.weekly_trend`` (``[[week, failures], …]``, weeks without failures left out) made dense:
+    one ``(Monday, failures)`` per week from the first listed week to the later of the last listed week and
+    ``end``, missing weeks counted as 0. Plain Python, cheap enough for every row of a list page.
+    """
+    counts: dict[date, int] = {}
+    for week, n in weekly_trend or []:
+        day = date.fromisoformat(str(week)[:10])
+        monday = day - timedelta(days=day.weekday())
+        counts[monday] = counts.get(monday, 0) + int(n or 0)
+    if not counts:
+        return []
+    first, last = min(counts), max(counts)
+    if end is not None:
+        last = max(last, end - timedelta(days=end.weekday()))
+    weeks = (last - first).days // 7 + 1
+    return [(first + timedelta(weeks=i), counts.get(first + timedelta(weeks=i), 0)) for i in range(weeks)]
+
+
+def trend_frame(weekly_trend: Sequence[Sequence], *, end: date | None = None) -> pd.DataFrame:
+    """:func:`dense_weekly_counts` as a frame: ``week`` (Monday, ``YYYY-MM-DD``) and ``failures``."""
+    rows = dense_weekly_counts(weekly_trend, end=end)
+    return pd.DataFrame({"week": [w.isoformat() for w, _ in rows], "failures": [n for _, n in rows]},
+                        columns=["week", "failures"]).astype({"week": str, "failures": int})
 
 
 def weekly_trend_figure(trend: pd.DataFrame, *, label: str = "") -> go.Figure:

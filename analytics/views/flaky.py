@@ -5,6 +5,7 @@ from __future__ import annotations
 import pandas as pd
 from django.conf import settings
 from django.contrib import messages
+from django.core.paginator import Paginator
 from django.http import Http404, HttpRequest, HttpResponse
 from django.shortcuts import redirect
 from django.urls import path, reverse
@@ -43,6 +44,8 @@ ERR_UNKNOWN_ACTION = "Unknown triage action."
 ERR_RELEASE_NOT_QUARANTINED = "Only a quarantined test can be released."
 ERR_NOTE_TOO_LONG = "The note is longer than 2000 characters."
 NOTE_MAX = 2000
+#: Builds per page of a test's outcome history.
+HISTORY_PAGE_SIZE = 40
 
 #: Outcome letter (as in TestHealth.recent_outcomes) → (symbol, word, CSS class). Symbol and word, not colour.
 OUTCOME_SYMBOLS = {
@@ -151,6 +154,7 @@ def flaky_detail(request: HttpRequest, test_id: int) -> HttpResponse:
         for attempt in entry.attempts:
             attempt["symbol"], attempt["word"], attempt["css"] = OUTCOME_SYMBOLS[OUTCOME_LETTER.get(
                 attempt["outcome"], "S")]
+    history_page = Paginator(history, HISTORY_PAGE_SIZE).get_page(request.GET.get("hpage"))
     triage = getattr(test, "triage", None)
     state = triage.state if triage is not None else TriageState.UNREVIEWED.value
     release_after = settings.BAROMETER_RELEASE_AFTER_GREEN_RUNS
@@ -162,7 +166,9 @@ def flaky_detail(request: HttpRequest, test_id: int) -> HttpResponse:
         "strip": outcome_strip(health.recent_outcomes) if health else [],
         "strip_label": strip_label(health.recent_outcomes) if health else "",
         "evidence": sorted((health.evidence or {}).items()) if health else [],
-        "history": history,
+        "history": history_page,
+        "history_builds": len(history),
+        "history_query": query_string(request, hpage=None),
         "history_limit": sel.HISTORY_LIMIT,
         "reruns": sum(1 for h in history if h.reran),
         "duration_chart": figure_div(duration_figure(points), div_id="duration-chart"),

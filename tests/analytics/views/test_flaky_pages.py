@@ -295,3 +295,13 @@ def test_triage_rejects_get_and_unknown_actions(triager_client, project, suspect
     assert triager_client.get(triage_url(project, test)).status_code == 405
     triager_client.post(triage_url(project, test), {"action": "delete_everything"})
     assert not TriageEvent.objects.filter(test_case=test).exists()
+
+
+def test_outcome_history_is_paged_by_build(viewer_client, project, suspects):
+    test = suspects["test_invoice_pdf"]
+    for n in range(1, 46):
+        make_result(project, make_build(project, n), test, "passed")
+    first = viewer_client.get(detail_url(project, test)).context["history"]
+    last = viewer_client.get(detail_url(project, test), {"hpage": 2}).context["history"]
+    assert [b.external_id for b in first][:2] == ["#45", "#44"] and len(first) == 40
+    assert [b.external_id for b in last] == ["#5", "#4", "#3", "#2", "#1"]
