@@ -10,13 +10,20 @@ from analytics.models import TestHealth, TriageEvent, TriageState
 from ingest.models import TestCase, TestResult
 
 
-def runs_frame(*, project_id: int, test_ids: Iterable[int] | None = None, since=None) -> pd.DataFrame:
-    """One row per attempt, with the build's commit, branch and start: the flaky detector's input."""
+def runs_frame(
+    *, project_id: int, test_ids: Iterable[int] | None = None, since=None, until=None
+) -> pd.DataFrame:
+    """One row per attempt, with the build's commit, branch and start: the flaky detector's input.
+
+    ``since`` / ``until`` keep builds started at or after / at or before those moments.
+    """
     qs = TestResult.objects.filter(project_id=project_id)
     if test_ids is not None:
         qs = qs.filter(test_case_id__in=list(test_ids))
     if since is not None:
         qs = qs.filter(build__started_at__gte=since)
+    if until is not None:
+        qs = qs.filter(build__started_at__lte=until)
     rows = qs.values_list(
         "test_case_id", "build_id", "build__commit", "build__branch", "build__started_at", "attempt", "outcome",
         "duration", "failure_type", "message",

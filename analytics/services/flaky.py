@@ -50,7 +50,8 @@ def flaky_scores_refresh(
     their rows rewritten) too whenever the classifier may be tried. The fold seed is fixed
     (:data:`RANDOM_STATE`): refreshing twice on unchanged data stores the same numbers.
 
-    Also recounts the green runs of quarantined tests among them (release suggestions).
+    Also recounts the green runs of quarantined tests among them (release suggestions). A full refresh
+    (``test_ids=None``) removes the rows of tests that have no run left in the evidence window.
 
     ``now`` (default: the current time) ends the evidence window; tests pass a fixed moment.
 
@@ -64,11 +65,18 @@ def flaky_scores_refresh(
     labels = triage_labels(project_id=project_id)
     per_class = labels.value_counts()
     may_train = min(int(per_class.get(0, 0)), int(per_class.get(1, 0))) >= MIN_LABELS_PER_CLASS
-    load_ids = None if test_ids is None else set(test_ids)
+    wanted = None if test_ids is None else {int(i) for i in test_ids}
+    load_ids = None if wanted is None else set(wanted)
     if load_ids is not None and may_train:
         load_ids |= {int(i) for i in labels.index}
-    runs = runs_frame(project_id=project_id, test_ids=load_ids, since=since)
-    triage_green_runs_refresh(project_id=project_id, test_ids=test_ids)
+    runs = runs_frame(project_id=project_id, test_ids=load_ids, since=since, until=now.to_pydatetime())
+    triage_green_runs_refresh(project_id=project_id, test_ids=wanted)
+    if wanted is None:
+        # Full refresh: a test without any run in the window has nothing left to judge it by.
+        stale = TestHealth.objects.filter(project_id=project_id)
+        if not runs.empty:
+            stale = stale.exclude(test_case_id__in=[int(i) for i in runs["test_id"].unique()])
+        stale.delete()
     if runs.empty:
         return 0
     scored = score_tests(runs, now=now, labels=labels if len(labels) else None, random_state=RANDOM_STATE)

@@ -128,3 +128,22 @@ def test_too_few_labels_keep_the_rules():
 def test_empty_project_stores_nothing():
     assert flaky_scores_refresh(project_id=make_project().pk) == 0
     assert not TestHealth.objects.exists()
+
+
+def test_full_refresh_drops_tests_without_runs_in_the_window_and_accepts_any_iterable():
+    from datetime import timedelta
+
+    from django.utils import timezone
+
+    project = make_project()
+    old = add_history(project, {"test_retired": ["P"] * 10}, start=timezone.now() - timedelta(days=200))
+    new = add_history(project, {"test_current": ["P"] * 10}, prefix="n")
+    flaky_scores_refresh(project_id=project.pk, now=timezone.now() - timedelta(days=150))
+    assert set(TestHealth.objects.values_list("test_case__name", flat=True)) == {"test_retired"}
+    # Incremental refresh (ids from a generator) adds the new test and leaves the rest alone.
+    assert flaky_scores_refresh(project_id=project.pk, test_ids=(t.pk for t in new.values())) == 1
+    assert TestHealth.objects.count() == 2
+    # Full refresh now: the retired test has no run in the last 90 days (DEFAULT_EVIDENCE_CONFIG).
+    flaky_scores_refresh(project_id=project.pk)
+    assert set(TestHealth.objects.values_list("test_case__name", flat=True)) == {"test_current"}
+    assert old["test_retired"].pk not in set(TestHealth.objects.values_list("test_case_id", flat=True))
