@@ -14,6 +14,7 @@ from django.views.decorators.http import require_GET, require_POST
 from analytics import selectors_pages as sel
 from analytics.charts.flaky import duration_figure
 from analytics.models import TriageState
+from analytics.services.triage import quarantine_release_candidates, triage_set
 from analytics.views.common import (
     figure_div,
     float_param,
@@ -44,6 +45,8 @@ ERR_UNKNOWN_ACTION = "Unknown triage action."
 ERR_RELEASE_NOT_QUARANTINED = "Only a quarantined test can be released."
 ERR_NOTE_TOO_LONG = "The note is longer than 2000 characters."
 NOTE_MAX = 2000
+#: Release suggestions listed on the list page (the count shows how many there are in all).
+RELEASE_SHOWN = 10
 #: Builds per page of a test's outcome history.
 HISTORY_PAGE_SIZE = 40
 
@@ -121,10 +124,14 @@ def flaky_list(request: HttpRequest) -> HttpResponse:
             "href": "?" + query_string(request, sort=key if descending else f"-{key}", page=None),
             "aria_sort": ("descending" if descending else "ascending") if current else None,
         })
+    release = quarantine_release_candidates(project_id=project.pk)
     context = {
         "rows": rows,
         "page": page,
         "headers": headers,
+        "release_candidates": release[:RELEASE_SHOWN],
+        "release_count": len(release),
+        "release_after": settings.BAROMETER_RELEASE_AFTER_GREEN_RUNS,
         "filters": filters,
         "min_score_text": request.GET.get("min_score", ""),
         "components": sel.component_names(project_id=project.pk),
@@ -192,8 +199,6 @@ def flaky_detail(request: HttpRequest, test_id: int) -> HttpResponse:
 @triage_required
 def flaky_triage(request: HttpRequest, test_id: int) -> HttpResponse:
     """Apply one triage action (POST ``action`` and ``note``); triagers only; back to the detail page."""
-    from analytics.services.triage import triage_set
-
     project = request.project
     test = sel.flaky_test_get(project_id=project.pk, test_id=test_id)
     if test is None:

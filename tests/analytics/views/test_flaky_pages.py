@@ -192,14 +192,14 @@ def test_malicious_test_name_is_escaped_in_list_and_detail(viewer_client, projec
 
 def test_list_query_count_does_not_grow_with_rows(viewer_client, project, django_assert_num_queries):
     # Session, user, project, project switcher, user permissions, group permissions, components,
-    # verdicts, row count, one page of rows: 10 queries whatever the number of rows.
+    # verdicts, row count, one page of rows, release suggestions: 11 queries whatever the number of rows.
     comp = Component.objects.create(project=project, name="Harbour office")
     for i in range(50):
         test = make_test(project, f"test_q_{i:02d}", component=comp if i % 2 else None, score=i / 50)
         if i % 3 == 0:
             triage_set(test_case=test, state=TriageState.CONFIRMED)
     for query, rows in (({"min_score": "0.9"}, 5), ({}, 50)):
-        with django_assert_num_queries(10):
+        with django_assert_num_queries(11):
             response = viewer_client.get(list_url(project), query)
         assert len(response.context["rows"]) == rows
 
@@ -305,3 +305,14 @@ def test_outcome_history_is_paged_by_build(viewer_client, project, suspects):
     last = viewer_client.get(detail_url(project, test), {"hpage": 2}).context["history"]
     assert [b.external_id for b in first][:2] == ["#45", "#44"] and len(first) == 40
     assert [b.external_id for b in last] == ["#5", "#4", "#3", "#2", "#1"]
+
+
+def test_list_suggests_releasing_tests_green_for_long_enough(viewer_client, project, suspects, settings):
+    settings.BAROMETER_RELEASE_AFTER_GREEN_RUNS = 3
+    held = suspects["test_refund_rounding"]
+    TestTriage.objects.filter(test_case=held).update(green_runs_since_quarantine=2)
+    assert 'id="release-suggestions"' not in viewer_client.get(list_url(project)).content.decode()
+    TestTriage.objects.filter(test_case=held).update(green_runs_since_quarantine=3)
+    html = viewer_client.get(list_url(project)).content.decode()
+    assert 'id="release-suggestions"' in html and "Ready to leave quarantine (1)" in html
+    assert detail_url(project, held) in html
