@@ -46,6 +46,7 @@ ERR_STRICT = (
     "first: line {line}, column {column!r}: {reason}"
 )
 ERR_NO_FILE = "the import job has no stored file"
+ERR_NOT_DEFECTS = "import job {job_id} is a {kind} import, not a defect export"
 ERR_KEY_TOO_LONG = "key is longer than {limit} characters"
 ERR_NO_MAP = "no saved column map named {name!r} in project {slug!r} (saved: {known})"
 REJECTED_CSV_HEADER = ("line", "column", "field", "reason", "raw values")
@@ -136,6 +137,39 @@ def defects_job_create(
         )
         StoredFile.objects.create(job=job, original_name=name[:500], sha256=sha, size=size, path=rel)
     return job
+
+
+def defects_job_reimport(
+    *, job: ImportJob, column_map: ColumnMap, strict: bool = False, user=None, via: str = "cli"
+) -> ImportJob:
+    """A new queued job over the raw export an earlier defect job kept, read with another column map.
+
+    The stored file is shared (content-addressed storage), not copied.
+    """
+    if job.kind != ImportJob.Kind.DEFECTS:
+        raise DefectImportError(ERR_NOT_DEFECTS.format(job_id=job.pk, kind=job.kind))
+    stored = job.files.first()
+    if stored is None:
+        raise DefectImportError(ERR_NO_FILE)
+    with transaction.atomic():
+        new = ImportJob.objects.create(
+            project=job.project,
+            kind=ImportJob.Kind.DEFECTS,
+            original_name=job.original_name,
+            size=job.size,
+            sha256=job.sha256,
+            parameters={"column_map": column_map.to_dict(), "strict": bool(strict), "reimport_of": job.pk},
+            created_by=user if getattr(user, "pk", None) else None,
+            created_via=via,
+        )
+        StoredFile.objects.create(
+            job=new,
+            original_name=stored.original_name,
+            sha256=stored.sha256,
+            size=stored.size,
+            path=stored.path,
+        )
+    return new
 
 
 # --------------------------------------------------------------------------------------------------- importing

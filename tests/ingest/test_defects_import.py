@@ -389,3 +389,60 @@ def test_preview_reports_format_rows_and_mapped_rows(tmp_path):
     broken = ColumnMap.from_dict({**cmap.to_dict(), "fields": {**cmap.fields, "title": "Headline"}})
     failed = defect_export_preview(path=path, column_map=broken)
     assert "'Headline'" in failed["error"] and failed["rows"]  # the raw rows still show
+
+
+def test_kept_export_is_reimported_with_a_corrected_map(tmp_path, project):
+    path = write_csv(
+        tmp_path / "renamed.csv",
+        [["BRT-1", "Gate code rejected", "2026-03-01T08:00:00Z", "", "New", "Access"]],
+        header=["Ticket", "Title", "Opened", "Closed", "State", "Area"],
+    )
+    failed = run(project, path, CMAP)
+    assert failed.status == ImportJob.Status.FAILED and Defect.objects.count() == 0
+    path.unlink()  # only the kept raw upload is left
+    fixed = {**CMAP, "name": "desk-fixed", "fields": {**CMAP["fields"], "title": "Title"}}
+    (tmp_path / "fixed.json").write_text(json.dumps(fixed), encoding="utf-8")
+    out = io.StringIO()
+    call_command(
+        "import_defects",
+        project="berthwise",
+        from_job=failed.pk,
+        mapping_file=tmp_path / "fixed.json",
+        no_refresh=True,
+        stdout=out,
+    )
+    assert "created         1" in out.getvalue()
+    assert Defect.objects.get(key="BRT-1").title == "Gate code rejected"
+    again = ImportJob.objects.order_by("-pk").first()
+    assert again.parameters["reimport_of"] == failed.pk
+    assert again.files.get().sha256 == failed.files.get().sha256
+    with pytest.raises(CommandError, match="either FILE or --from-job"):
+        call_command("import_defects", project="berthwise", mapping="desk", stdout=io.StringIO())
+
+
+def test_component_aliases_resolve_to_one_component(tmp_path, project):
+    from ingest.models import ComponentAlias
+
+    app = Component.objects.create(project=project, name="Mobile App")
+    ComponentAlias.objects.create(project=project, alias="Front end / App", component=app)
+    path = write_csv(
+        tmp_path / "a.csv",
+        [
+            ["BRT-1", "Map blank", "2026-03-01T08:00:00Z", "", "New", "mobile app"],
+            ["BRT-2", "Login loops", "2026-03-01T09:00:00Z", "", "New", "  FRONT END /  app "],
+            ["BRT-3", "Tide off", "2026-03-01T10:00:00Z", "", "New", "Mobile App;Tides"],
+        ],
+    )
+    run(project, path, CMAP)
+    assert set(Component.objects.values_list("name", flat=True)) == {"Mobile App", "Tides"}
+    assert app.defects.count() == 3
+
+
+def test_preview_of_json_lines_with_nested_paths(tmp_path):
+    shape = next(s for s in SHAPES if "json_lines" in s.__name__)
+    path, cmap = shape(tmp_path)
+    preview = defect_export_preview(path=path, column_map=cmap, limit=10)
+    assert preview["format"] == "jsonl" and "fields.component.name" in preview["columns"]
+    assert preview["rows"][0]["values"]["fields"]["summary"] == DEFECTS[0]["title"]
+    assert [m["components"] for m in preview["mapped"]] == [list(d["components"]) for d in DEFECTS]
+    assert preview["row_errors"] == [] and preview["error"] == ""

@@ -14,6 +14,7 @@ from ingest.services.defects import (
     column_map_get,
     column_map_save,
     defects_job_create,
+    defects_job_reimport,
     defects_job_run,
     defects_rejected_csv_write,
 )
@@ -22,6 +23,8 @@ ERR_ONE_MAP_SOURCE = "give exactly one of --mapping NAME, --mapping-file PATH or
 ERR_MAP_OPTIONS = "--closed-status, --open-status, --severity-order, --priority-order, --date-format and "
 ERR_MAP_OPTIONS += "--delimiter only go with --map (a saved or file map carries its own)"
 ERR_NO_FILE = "{path}: no such file"
+ERR_FILE_OR_JOB = "give either FILE or --from-job ID"
+ERR_NO_JOB = "no import job {job_id} in project {slug!r}"
 ERR_MAP_FILE = "{path}: {reason}"
 SHOWN_ROW_ERRORS = 20
 MORE_ROW_ERRORS = "  … {count} more: write them all with --rejected-csv FILE, or GET {url}"
@@ -50,7 +53,13 @@ class Command(BaseCommand):
     )
 
     def add_arguments(self, parser):
-        parser.add_argument("file", type=Path)
+        parser.add_argument("file", type=Path, nargs="?", help="The export; or give --from-job instead.")
+        parser.add_argument(
+            "--from-job",
+            type=int,
+            metavar="ID",
+            help="Re-import the raw export kept by this earlier defect import (e.g. with a corrected map).",
+        )
         parser.add_argument("--project", required=True, help="Project slug (created if absent).")
         parser.add_argument("--mapping", help="Name of a column map saved in the project.")
         parser.add_argument("--mapping-file", type=Path, help="Column-map JSON file.")
@@ -103,8 +112,10 @@ class Command(BaseCommand):
         )
 
     def handle(self, *args, **opts):
-        path: Path = opts["file"]
-        if not path.is_file():
+        path: Path | None = opts["file"]
+        if (path is None) == (opts["from_job"] is None):
+            raise CommandError(ERR_FILE_OR_JOB)
+        if path is not None and not path.is_file():
             raise CommandError(ERR_NO_FILE.format(path=path))
         if sum(bool(opts[k]) for k in ("mapping", "mapping_file", "map")) != 1:
             raise CommandError(ERR_ONE_MAP_SOURCE)
@@ -120,15 +131,19 @@ class Command(BaseCommand):
             raise CommandError(ERR_MAP_OPTIONS)
         project, _ = Project.objects.get_or_create(slug=opts["project"], defaults={"name": opts["project"]})
         column_map = self._column_map(project, opts)
-        with open(path, "rb") as fh:
-            job = defects_job_create(
-                project=project,
-                name=str(path),
-                stream=fh,
-                column_map=column_map,
-                strict=opts["strict"],
-                via="cli",
-            )
+        if path is None:
+            earlier = ImportJob.objects.filter(project=project, pk=opts["from_job"]).first()
+            if earlier is None:
+                raise CommandError(ERR_NO_JOB.format(job_id=opts["from_job"], slug=project.slug))
+            try:
+                job = defects_job_reimport(job=earlier, column_map=column_map, strict=opts["strict"])
+            except DefectImportError as exc:
+                raise CommandError(str(exc)) from exc
+        else:
+            with open(path, "rb") as fh:
+                job = defects_job_create(
+                    project=project, name=str(path), stream=fh, column_map=column_map, strict=opts["strict"]
+                )
         try:
             counts = defects_job_run(job=job, refresh=not opts["no_refresh"])
         except DefectImportError as exc:
