@@ -16,6 +16,7 @@ from analytics.models import ForecastSnapshot
 from analytics.services.forecasts import EXPORT_FIELDS
 from analytics.views.forecasts import TOTAL_LABEL, UNKNOWN_SERIES, outlook_sum
 from barometer_common.csvsafe import neutralise_cell
+from ingest.models import Project
 from tests.analytics.views.test_forecast_pages_support import (  # noqa: F401 (fixtures)
     FIRST_FORECAST_WEEK,
     FORMULA,
@@ -184,3 +185,15 @@ def test_outlook_sum_matches_the_poisson_interval_of_the_sum(mean, weeks):
     assert result["expected"] == pytest.approx(weeks * mean)
     assert abs(result["lower"] - lower) <= 1 and abs(result["upper"] - upper) <= 1
     assert outlook_sum(forecast, weeks + 1) is None
+
+
+def test_a_project_without_defects_or_snapshots_still_gets_a_page_and_a_sheet(viewer_client, db):
+    project = Project.objects.create(slug="empty-harbour", name="Empty harbour")
+    response = viewer_client.get(url(project))
+    assert response.status_code == 200
+    assert response.context["report"]["source"] == "computed"
+    assert response.context["series"]["series_name"] == TOTAL
+    # nothing known yet: the forecast is zero every week, said in words by the note
+    assert {week["expected"] for week in response.context["forecast"]} == {0.0}
+    assert response.context["series"]["note"] in response.content.decode()
+    assert viewer_client.get(url(project, "forecasts-sheet")).status_code == 200
