@@ -50,7 +50,8 @@ ERR_NOT_DEFECTS = "import job {job_id} is a {kind} import, not a defect export"
 ERR_KEY_TOO_LONG = "key is longer than {limit} characters"
 ERR_NO_MAP = "no saved column map named {name!r} in project {slug!r} (saved: {known})"
 REJECTED_CSV_HEADER = ("line", "column", "field", "reason", "raw values")
-RAW_LIMIT = 2000  # characters of a rejected record's raw values kept on the job
+RAW_LIMIT = 1000  # characters of a rejected record's raw values kept on the job
+RAW_ROWS = 1000  # rejected records whose raw values are kept (all are listed; the raw file holds the rest)
 WARN_TRUNCATED = "{field} longer than {limit} characters was shortened (rows: {count}, first on line {line})"
 
 # Defect fields compared between the stored defect and the incoming row (components are compared apart).
@@ -341,7 +342,7 @@ def _attach_raw_values(path: os.PathLike[str] | str, filename: str, row_errors: 
     Runs only when rows were rejected. The reader yields one record per line number, so the line identifies
     the record; a file broken further on (bad quoting) keeps the raw values found before the break.
     """
-    wanted = {err["line"] for err in row_errors}
+    wanted = {err["line"] for err in row_errors[:RAW_ROWS]}
     found: dict[int, str] = {}
     try:
         _, records = read_source_rows(path, filename=filename)

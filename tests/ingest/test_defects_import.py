@@ -446,3 +446,10 @@ def test_preview_of_json_lines_with_nested_paths(tmp_path):
     assert preview["rows"][0]["values"]["fields"]["summary"] == DEFECTS[0]["title"]
     assert [m["components"] for m in preview["mapped"]] == [list(d["components"]) for d in DEFECTS]
     assert preview["row_errors"] == [] and preview["error"] == ""
+
+
+def test_every_rejected_row_is_listed_even_past_the_raw_values_cap(tmp_path, project, monkeypatch):
+    monkeypatch.setattr(service, "RAW_ROWS", 2)
+    job = run(project, bad_export(tmp_path), CMAP)
+    assert [e["line"] for e in job.row_errors] == [3, 4, 5, 6]
+    assert [bool(e["raw"]) for e in job.row_errors] == [True, True, False, False]
