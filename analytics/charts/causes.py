@@ -52,6 +52,8 @@ def weekly_trend_figure(trend: pd.DataFrame, *, label: str = "") -> go.Figure:
     ))
     fig.update_layout(title=title, xaxis_title="week (Monday)", yaxis_title="failures", height=320,
                       margin={"l": 50, "r": 10, "t": 40, "b": 60}, template="plotly_white")
+    # One tick per week when there are few weeks; plotly picks a coarser step otherwise.
+    fig.update_xaxes(type="date", tickformat="%d %b %Y", dtick=7 * 86_400_000 if len(trend) <= 12 else None)
     if trend.empty:
         fig.add_annotation(text="No failures recorded", showarrow=False, xref="paper", yref="paper", x=0.5, y=0.5)
     return fig

@@ -22,6 +22,7 @@ from analytics.charts.causes import (
 )
 from analytics.models import ClusterDefectLink, FailureCluster, FailureSignature
 from analytics.views.common import (
+    can_triage,
     figure_div,
     int_param,
     paginate,
@@ -139,6 +140,7 @@ def causes_detail(request: HttpRequest, cluster_id: int) -> HttpResponse:
         "cluster": cluster,
         "signatures": signatures,
         "signature_count": len(keys),
+        "can_split": can_triage(request.user) and cluster.merged_into_id is None and len(keys) > 1,
         "failures": failures,
         "trend_chart": figure_div(weekly_trend_figure(trend, label=cluster.label), div_id="trend-chart"),
         "trend_word": trend_word(trend["failures"].tolist()),

@@ -323,3 +323,8 @@ def test_stored_trend_is_made_dense_up_to_the_latest_build_week():
     assert trend_word([0, 0, 0, 0, 1, 2, 1, 2]) == "new"
     assert trend_word([2, 2, 2, 2, 2, 2, 2, 2]) == "steady"
     assert trend_word([5, 5, 0, 0, 0, 0]) == "quiet"
+
+
+def test_no_split_form_for_a_single_signature_cause(triager_client, project, causes):
+    html = triager_client.get(detail_url(project, causes["gate"])).content.decode()
+    assert 'id="split-form"' not in html and 'id="merge-form"' in html
