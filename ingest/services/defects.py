@@ -18,6 +18,7 @@ from dataclasses import dataclass, field
 from datetime import datetime
 from typing import IO, Any, BinaryIO
 
+from django.core.cache import cache
 from django.db import connection, transaction
 from django.utils import timezone
 
@@ -34,6 +35,7 @@ from ingest.parsers.defects import (
     read_source_rows,
 )
 from ingest.services.components import ComponentResolver
+from ingest.services.results import progress_cache_key
 from ingest.storage import raw_file_path, raw_file_store
 
 log = logging.getLogger(__name__)
@@ -357,6 +359,20 @@ def _attach_raw_values(path: os.PathLike[str] | str, filename: str, row_errors: 
         err.setdefault("raw", found.get(err["line"], ""))
 
 
+def _line_count(path: os.PathLike[str] | str) -> int:
+    count = 0
+    with open(path, "rb") as fh:
+        while chunk := fh.read(1 << 20):
+            count += chunk.count(b"\n")
+    return max(count, 1)
+
+
+def _progress_save(job: ImportJob, value: float) -> None:
+    # The job row is inside the import transaction: pollers read the progress from the cache instead
+    # (the same key the results import and the job endpoint use).
+    cache.set(progress_cache_key(job.pk), min(value, 0.99), timeout=3600)
+
+
 def defects_job_run(*, job: ImportJob, refresh: bool = True) -> dict:
     """Read the job's export and upsert its defects by key, all in ONE transaction; return the counts.
 
@@ -386,6 +402,7 @@ def defects_job_run(*, job: ImportJob, refresh: bool = True) -> dict:
         now = timezone.now()
         path = raw_file_path(stored.path)
         result = defect_rows(path, column_map, filename=stored.original_name, now=now)
+        lines = _line_count(path) if result.info.format in ("csv", "jsonl") else 0
         with transaction.atomic():
             writer = _DefectWriter(job=job, counts=counts, now=now)
             batch: list[DefectRow] = []
@@ -395,6 +412,8 @@ def defects_job_run(*, job: ImportJob, refresh: bool = True) -> dict:
                 batch.append(row)
                 if len(batch) >= BATCH_SIZE:
                     writer.write(batch)
+                    if lines:
+                        _progress_save(job, batch[-1].line / lines)
                     batch = []
             counts.rejected = len(row_errors)
             if row_errors:

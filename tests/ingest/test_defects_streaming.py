@@ -58,6 +58,8 @@ def test_100k_rows_are_written_in_bounded_batches_with_bounded_queries(big_expor
         return original(self, batch)
 
     monkeypatch.setattr(service._DefectWriter, "write", recording_write)
+    progress: list[float] = []
+    monkeypatch.setattr(service, "_progress_save", lambda job, value: progress.append(value))
     with open(big_export, "rb") as fh:
         job = defects_job_create(project=project, name="defects.csv", stream=fh, column_map=cmap)
     with CaptureQueriesContext(connection) as queries:
@@ -75,3 +77,6 @@ def test_100k_rows_are_written_in_bounded_batches_with_bounded_queries(big_expor
     per_batch = 2 * math.ceil(service.BATCH_SIZE / service.FETCH_CHUNK) + 2
     assert len(queries) <= per_batch * len(batches) + 10 + 5 * len(COMPONENTS), len(queries)
     assert len(queries) < N_ROWS / 100
+    # progress is published after each full batch and grows towards the end of the file
+    assert len(progress) == N_ROWS // service.BATCH_SIZE and progress == sorted(progress)
+    assert progress[0] == pytest.approx(service.BATCH_SIZE / (N_ROWS + 1), abs=1e-3) and progress[-1] > 0.99
