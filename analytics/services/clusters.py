@@ -20,7 +20,7 @@ import pandas as pd
 from django.conf import settings
 from django.core.cache import cache
 from django.core.exceptions import PermissionDenied, ValidationError
-from django.db import transaction
+from django.db import connection, transaction
 from django.db.models import Count, Max, Q
 from django.utils import timezone
 from scipy import sparse
@@ -69,7 +69,7 @@ ERR_SPLIT_ALL = "cannot split off every signature of cluster #{pk}; at least one
 ERR_NOT_TRIAGER = (
     "only signed-in people with the triage permission (group 'triagers') may change failure clusters"
 )
-_UPDATE_CHUNK = 500
+_UPDATE_CHUNK = 5000
 
 
 def distance_threshold() -> float:
@@ -82,6 +82,16 @@ def _state_cache_key(project_id: int) -> str:
 
 
 # --------------------------------------------------------------------------------------------------- signatures
+def _results_sign(by_key: dict[str, list[int]]) -> None:
+    """Write the signature keys onto their results: one prepared UPDATE run over (key, id) pairs in batches."""
+    table = connection.ops.quote_name(TestResult._meta.db_table)
+    sql = f"UPDATE {table} SET signature = %s WHERE id = %s"  # noqa: S608 - table name from the model
+    pairs = [(key, pk) for key, ids in by_key.items() for pk in ids]
+    with connection.cursor() as cursor:
+        for start in range(0, len(pairs), _UPDATE_CHUNK):
+            cursor.executemany(sql, pairs[start : start + _UPDATE_CHUNK])
+
+
 def signatures_fill(*, project_id: int, build_id: int | None = None) -> set[str]:
     """Give every failure of the project (or of one build) its signature key; store new signatures.
 
@@ -102,9 +112,7 @@ def signatures_fill(*, project_id: int, build_id: int | None = None) -> set[str]
             memo[triple] = signature
         by_key.setdefault(signature.key, []).append(result_id)  # type: ignore[attr-defined]
         signed.setdefault(signature.key, signature)  # type: ignore[attr-defined]
-    for key, ids in by_key.items():
-        for start in range(0, len(ids), _UPDATE_CHUNK):
-            TestResult.objects.filter(pk__in=ids[start : start + _UPDATE_CHUNK]).update(signature=key)
+    _results_sign(by_key)
 
     keys = signature_keys_in(project_id=project_id, build_id=build_id)
     stored = set(
@@ -341,7 +349,12 @@ def _clusterer_forget(project_id: int) -> None:
 
 # --------------------------------------------------------------------------------------------------- refresh
 def _new_clusters(project_id: int, count: int) -> list[FailureCluster]:
-    return [FailureCluster.objects.create(project_id=project_id, label="") for _ in range(count)]
+    clusters = FailureCluster.objects.bulk_create(
+        [FailureCluster(project_id=project_id) for _ in range(count)]
+    )
+    if any(cluster.pk is None for cluster in clusters):  # a backend that does not return ids
+        raise RuntimeError("the database did not return the ids of new failure clusters")
+    return clusters
 
 
 def clusters_refresh(*, project_id: int) -> int:
