@@ -8,13 +8,14 @@ from datetime import datetime, timedelta
 
 import pandas as pd
 from django.db import transaction
+from django.db.models import Max
 from django.utils import timezone
 
 from analytics.core.flaky import DEFAULT_EVIDENCE_CONFIG, score_tests
 from analytics.models import TestHealth, TriageState
 from analytics.selectors import flaky_health_qs, runs_frame
 from analytics.services.triage import triage_green_runs_refresh, triage_labels
-from ingest.models import Project
+from ingest.models import Build, Project
 
 #: Seed of the classifier's cross-validation folds: the same data always gives the same scores.
 RANDOM_STATE = 0
@@ -53,14 +54,19 @@ def flaky_scores_refresh(
     Also recounts the green runs of quarantined tests among them (release suggestions). A full refresh
     (``test_ids=None``) removes the rows of tests that have no run left in the evidence window.
 
-    ``now`` (default: the current time) ends the evidence window; tests pass a fixed moment.
+    ``now`` ends the evidence window. Default: the project's latest build (or the current time if that is
+    earlier, or if there is no build), so that a project whose CI went quiet, or the demo's fixed history,
+    still shows the scores of its last 90 days instead of nothing.
 
     Returns
     -------
     int
         How many ``TestHealth`` rows were written.
     """
-    now = pd.Timestamp(now or timezone.now())
+    if now is None:
+        latest = Build.objects.filter(project_id=project_id).aggregate(latest=Max("started_at"))["latest"]
+        now = min(timezone.now(), latest) if latest is not None else timezone.now()
+    now = pd.Timestamp(now)
     since = now.to_pydatetime() - timedelta(days=DEFAULT_EVIDENCE_CONFIG.window_days)
     labels = triage_labels(project_id=project_id)
     per_class = labels.value_counts()
