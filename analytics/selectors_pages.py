@@ -283,7 +283,7 @@ def cluster_table_row(cluster: FailureCluster) -> dict:
         "builds_affected": cluster.builds_affected,
         "first_seen": cluster.first_seen,
         "last_seen": cluster.last_seen,
-        "weekly_trend": " ".join(str(n) for _, n in (cluster.weekly_trend or [])),
+        "weekly_trend": " ".join(f"{week}:{n}" for week, n in (cluster.weekly_trend or [])),
         "defects": " ".join(f"{ln.defect.key}{'' if ln.confirmed else '?'}" for ln in links[:LIST_DEFECTS]),
     }
 

@@ -185,6 +185,9 @@ def test_json_download_matches_the_filters(viewer_client, project, causes):
     data = json.loads(viewer_client.get(list_url(project), {"download": "json", "defects": "suggested"}).content)
     assert [row["label"] for row in data] == ["berth map tile timeout"]
     assert data[0]["defects"] == "BW-101?"
+    # week:failures pairs as stored, oldest first; the first week with failures is 5 weeks before 2026-10-05.
+    assert data[0]["weekly_trend"].split() == ["2026-08-31:1", "2026-09-07:1", "2026-09-14:3", "2026-09-21:3",
+                                               "2026-09-28:4", "2026-10-05:4"]
 
 
 def test_list_query_count_does_not_grow_with_rows(viewer_client, project, django_assert_num_queries):
