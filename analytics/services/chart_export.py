@@ -16,6 +16,7 @@ from __future__ import annotations
 import asyncio
 import atexit
 import gc
+import logging
 import os
 import re
 import shutil
@@ -29,6 +30,7 @@ DEFAULT_WIDTH, DEFAULT_HEIGHT, DEFAULT_SCALE = 1200, 600, 1
 MIN_SIDE, MAX_SIDE = 200, 3000
 SCALES = (1, 2)
 CHROMIUM_NAMES = ("chromium", "chromium-browser")
+QUIET_LOGGERS = ("choreographer", "kaleido", "logistro")
 
 CHROMIUM_MISSING = (
     "Chart export needs Chromium on the server, and none was found (looked at BROWSER_PATH and for "
@@ -99,6 +101,9 @@ class _ExportServer:
         if self._kaleido is not None:
             return
         import kaleido  # imported late: processes that never export do not load it
+
+        for name in QUIET_LOGGERS:  # their INFO lines (temporary folders, tabs) are noise in our logs
+            logging.getLogger(name).setLevel(logging.WARNING)
 
         if self._loop is None:
             self._loop = asyncio.new_event_loop()

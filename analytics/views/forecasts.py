@@ -165,6 +165,7 @@ def forecasts_page(request: HttpRequest) -> HttpResponse:
     context = {
         "horizon": horizon,
         "horizon_choices": sorted({*HORIZON_CHOICES, horizon}),
+        "stored_horizon": DEFAULT_HORIZON_WEEKS,
         "series_options": [(p["series_name"], series_label(p["series_name"])) for p in report["series"]],
         "series": payload,
         "label": series_label(name),
@@ -179,9 +180,7 @@ def forecasts_page(request: HttpRequest) -> HttpResponse:
         "trend": payload["trend"],
         "source_text": _source_text(report),
         "report": report,
-        "chart": figure_div(
-            _figure(payload, project=request.project, report=report), div_id="forecast-chart"
-        ),
+        "chart": figure_div(_figure(payload), div_id="forecast-chart"),  # the page states project and date
         "png_url": f"{chart_url}?{urlencode({**query, 'format': 'png'})}",
         "svg_url": f"{chart_url}?{urlencode({**query, 'format': 'svg'})}",
         "csv_url": f"{csv_url}?{urlencode(query)}",
