@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from django.utils import timezone
+from drf_spectacular.extensions import OpenApiAuthenticationExtension
 from rest_framework import authentication, exceptions, permissions
 
 from ingest.models import ApiToken
@@ -60,3 +61,14 @@ class ProjectAccess(permissions.BasePermission):
         if isinstance(user, TokenPrincipal):
             return user.token.project.slug == view.kwargs.get("slug")
         return True
+
+
+class ProjectTokenScheme(OpenApiAuthenticationExtension):
+    """Describes the project token in the OpenAPI schema (registered by subclassing)."""
+
+    target_class = ProjectTokenAuthentication
+    name = "projectToken"
+
+    def get_security_definition(self, auto_schema):
+        return {"type": "http", "scheme": "bearer",
+                "description": "Per-project API token (created in the admin site), sent as `Authorization: Bearer <key>`."}
