@@ -331,3 +331,10 @@ def test_stored_trend_is_made_dense_up_to_the_latest_build_week():
 def test_no_split_form_for_a_single_signature_cause(triager_client, project, causes):
     html = triager_client.get(detail_url(project, causes["gate"])).content.decode()
     assert 'id="split-form"' not in html and 'id="merge-form"' in html
+
+
+def test_trend_chart_escapes_the_cause_label():
+    from analytics.charts.causes import trend_frame, weekly_trend_figure
+
+    fig = weekly_trend_figure(trend_frame([["2026-10-05", 3]]), label=XSS)
+    assert "<img" not in fig.layout.title.text and "&lt;img src=x" in fig.layout.title.text

@@ -316,3 +316,38 @@ def test_list_suggests_releasing_tests_green_for_long_enough(viewer_client, proj
     html = viewer_client.get(list_url(project)).content.decode()
     assert 'id="release-suggestions"' in html and "Ready to leave quarantine (1)" in html
     assert detail_url(project, held) in html
+
+
+def test_duration_chart_escapes_uploaded_strings_in_hover_text():
+    import pandas as pd
+
+    from analytics.charts.flaky import duration_figure
+
+    runs = pd.DataFrame({"started_at": pd.to_datetime(["2026-10-05T09:00Z", "2026-10-06T09:00Z"]),
+                         "build": [XSS, "#2"], "commit": ["abc", XSS], "attempt": [1, 1],
+                         "outcome": ["passed", "failed"], "duration": [1.0, 2.0]})
+    hover = [text for trace in duration_figure(runs).data for text in trace.hovertext]
+    assert len(hover) == 2
+    assert all("<img" not in text for text in hover)
+    assert any("&lt;img src=x onerror=alert(1)&gt;" in text for text in hover)
+
+
+def test_detail_query_count_does_not_grow_with_history(viewer_client, project, suspects):
+    from django.db import connection
+    from django.test.utils import CaptureQueriesContext
+
+    test = suspects["test_berth_map_loads"]
+
+    def queries() -> int:
+        with CaptureQueriesContext(connection) as ctx:
+            assert viewer_client.get(detail_url(project, test)).status_code == 200
+        return len(ctx.captured_queries)
+
+    for n in range(1, 6):
+        make_result(project, make_build(project, n), test, "failed" if n % 2 else "passed", signature="k")
+    few = queries()
+    for n in range(6, 51):
+        build = make_build(project, n)
+        make_result(project, build, test, "failed", attempt=1, signature="k")
+        make_result(project, build, test, "passed", attempt=2)
+    assert queries() == few
