@@ -12,6 +12,7 @@ its row with zero failures (a merged one also points at the cluster it went into
 
 from __future__ import annotations
 
+import hashlib
 import logging
 from collections.abc import Iterable
 
@@ -32,7 +33,7 @@ from analytics.core.clustering import (
     build_vectoriser,
     match_defects,
 )
-from analytics.core.signatures import failure_signature
+from analytics.core.signatures import Signature, failure_signature
 from analytics.models import ClusterDefectLink, FailureCluster, FailureSignature
 from analytics.selectors_causes import (
     cluster_failures_frame,
@@ -100,18 +101,19 @@ def signatures_fill(*, project_id: int, build_id: int | None = None) -> set[str]
     recounts the occurrences of the keys it touched. Returns the keys of the failures in scope.
     """
     by_key: dict[str, list[int]] = {}
-    signed: dict[str, object] = {}
-    memo: dict[tuple[str, str, str], object] = {}
+    signed: dict[str, Signature] = {}
+    memo: dict[bytes, Signature] = {}  # by digest, so the failure texts themselves are not kept
     for result_id, failure_type, message, details in unsigned_failures(
         project_id=project_id, build_id=build_id
     ):
         triple = (failure_type or "", message or "", details or "")
-        signature = memo.get(triple)
+        digest = hashlib.blake2b("\0".join(triple).encode("utf-8", "surrogatepass"), digest_size=16).digest()
+        signature = memo.get(digest)
         if signature is None:
             signature = failure_signature(failure_type=triple[0], message=triple[1], details=triple[2])
-            memo[triple] = signature
-        by_key.setdefault(signature.key, []).append(result_id)  # type: ignore[attr-defined]
-        signed.setdefault(signature.key, signature)  # type: ignore[attr-defined]
+            memo[digest] = signature
+        by_key.setdefault(signature.key, []).append(result_id)
+        signed.setdefault(signature.key, signature)
     _results_sign(by_key)
 
     keys = signature_keys_in(project_id=project_id, build_id=build_id)
@@ -130,9 +132,9 @@ def signatures_fill(*, project_id: int, build_id: int | None = None) -> set[str]
             FailureSignature(
                 project_id=project_id,
                 key=key,
-                text=signature.text,  # type: ignore[attr-defined]
-                exception=signature.exception[:300],  # type: ignore[attr-defined]
-                language=signature.language,  # type: ignore[attr-defined]
+                text=signature.text,
+                exception=signature.exception[:300],
+                language=signature.language,
             )
         )
     FailureSignature.objects.bulk_create(new_rows, batch_size=1000, ignore_conflicts=True)
