@@ -1,3 +1,4 @@
+from django import forms
 from django.contrib import admin, messages
 
 from ingest import models
@@ -82,8 +83,26 @@ class ImportJobAdmin(admin.ModelAdmin):
     readonly_fields = ("counts", "warnings", "row_errors", "error", "sha256", "size")
 
 
+class DefectColumnMapForm(forms.ModelForm):
+    class Meta:
+        model = models.DefectColumnMap
+        fields = ("project", "name", "definition")
+
+    def clean_definition(self):
+        """The same validation as the CLI and the API: a broken map is refused with the bad key named."""
+        from ingest.parsers.defects import ColumnMap, ColumnMapError
+
+        definition = self.cleaned_data["definition"]
+        try:
+            ColumnMap.from_dict(definition)
+        except ColumnMapError as exc:
+            raise forms.ValidationError(str(exc)) from exc
+        return definition
+
+
 @admin.register(models.DefectColumnMap)
 class DefectColumnMapAdmin(admin.ModelAdmin):
+    form = DefectColumnMapForm
     list_display = ("name", "project", "updated_at")
 
 

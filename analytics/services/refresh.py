@@ -29,23 +29,27 @@ def _recorded(*, project_id: int, detector: str, scope: str, run: Callable[[], i
 
 def analytics_refresh(*, project_id: int) -> dict[str, tuple[int, float]]:
     """Full refresh: every detector on the whole window. Returns {detector: (rows written, seconds)}."""
+    from analytics.services.duplicates import defect_duplicates_refresh
     from analytics.services.flaky import flaky_scores_refresh
     from analytics.services.forecasts import forecasts_refresh
 
     steps: dict[str, Callable[[], int]] = {
         "flaky": lambda: flaky_scores_refresh(project_id=project_id),
         "forecasts": lambda: forecasts_refresh(project_id=project_id),
+        "duplicates": lambda: defect_duplicates_refresh(project_id=project_id),
     }
     return {name: _recorded(project_id=project_id, detector=name, scope="full", run=run)
             for name, run in steps.items()}
 
 
 def analytics_refresh_after_defects(*, project_id: int) -> dict[str, tuple[int, float]]:
-    """After a defect import: the detectors that read defects (forecasts)."""
+    """After a defect import: the detectors that read defects (forecasts, duplicate suggestions)."""
+    from analytics.services.duplicates import defect_duplicates_refresh
     from analytics.services.forecasts import forecasts_refresh
 
     steps: dict[str, Callable[[], int]] = {
         "forecasts": lambda: forecasts_refresh(project_id=project_id),
+        "duplicates": lambda: defect_duplicates_refresh(project_id=project_id),
     }
     return {name: _recorded(project_id=project_id, detector=name, scope="defects", run=run)
             for name, run in steps.items()}
