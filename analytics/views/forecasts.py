@@ -109,7 +109,8 @@ def _source_text(report: dict[str, Any]) -> str:
             f"known on {report['as_of']}."
         )
     return (
-        f"Computed just now for {report['horizon_weeks']} weeks from the defects known on {report['as_of']}, "
+        f"Computed on request ({report['computed_at']:%d %b %Y %H:%M} UTC) for {report['horizon_weeks']} weeks "
+        f"from the defects known on {report['as_of']}, "
         "because the stored forecast does not reach that far (or none is stored yet); it is not stored, "
         "and the backtest behind it is scored over the same horizon."
     )
