@@ -162,3 +162,12 @@ def test_merge_split_and_confirm_through_the_api(project, token_client):
     response = triager.post(f"{URL}{b.pk}/defects/", {"defect": "BW-4001"}, format="json")
     assert response.status_code == 200 and response.json()["confirmed"] is True
     assert ClusterDefectLink.objects.get(cluster=b, defect__key="BW-4001").confirmed
+
+
+def test_list_query_count_does_not_grow_with_the_page(project, token_client):
+    counts = []
+    for limit in (1, 6):
+        with CaptureQueriesContext(connection) as queries:
+            assert len(token_client.get(URL, {"limit": limit}).json()["results"]) == limit
+        counts.append(len(queries))
+    assert counts[0] == counts[1]
