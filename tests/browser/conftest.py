@@ -41,6 +41,12 @@ def pytest_collection_modifyitems(config, items):
                 item.add_marker(pytest.mark.skip(reason=NO_CHROMIUM))
 
 
+def pytest_terminal_summary(terminalreporter, exitstatus, config):
+    skipped = terminalreporter.stats.get("skipped", [])
+    if not HAVE_CHROMIUM and any("tests/browser/" in getattr(r, "nodeid", "") for r in skipped):
+        terminalreporter.write_line(NO_CHROMIUM, yellow=True, bold=True)
+
+
 @pytest.fixture(scope="session")
 def browser_type_launch_args(browser_type_launch_args):
     return {**browser_type_launch_args, "executable_path": CHROMIUM, "args": ARGS}
@@ -67,7 +73,8 @@ class DemoSite:
 def demo_site_server(tmp_path_factory):
     """Prepare the demo database in a subprocess, then serve it with ``runserver`` until the session ends."""
     root = tmp_path_factory.mktemp("browser-site")
-    env = site_environment = demo_site.site_environment(root)
+    site_environment = demo_site.site_environment(root)
+    env = {**site_environment, "BAROMETER_EAGER_IN_THREAD": "0"}  # while loading, run the tasks inline
     log = open(root / "prepare.log", "w")
     subprocess.run([sys.executable, "-m", "tests.browser.demo_site", str(root)], cwd=REPO, env=env,
                    stdout=log, stderr=subprocess.STDOUT, check=True)

@@ -20,7 +20,7 @@ XSS_CLASS = "berthwise.xss.Payload"
 XSS_COMPONENT = f"Harbour {XSS}"
 ADMIN = ("demo", "harbour-demo-2026")  # created by load_demo (see ingest/management/commands/load_demo.py)
 VIEWER = ("vera", "vera-viewer-2026")
-SCALE = {"n_tests": 80, "n_days": 35, "n_defects": 60}
+SCALE = {"n_tests": 60, "n_days": 28, "n_defects": 40}
 
 
 def site_environment(root: Path) -> dict[str, str]:

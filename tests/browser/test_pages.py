@@ -75,8 +75,8 @@ def test_this_week_page(admin_page, site):
     assert XSS_COMPONENT in legend
     assert XSS_COMPONENT in page.locator("#component-filter option").all_inner_texts()
     _clean(page)
-    page.set_viewport_size({"width": 390, "height": 844})
-    page.reload()
+    page.set_viewport_size({"width": 390, "height": 844})  # plotly's responsive mode redraws on resize
+    page.wait_for_timeout(500)
     assert _charts_drawn(page) == 4
     screenshot(page, "this-week-390")
     _clean(page)
@@ -154,7 +154,7 @@ def test_defect_upload_preview_and_mapping_pages(admin_page, site, tmp_path):
 def test_an_import_shows_progress_then_done_without_reload(admin_page, site):
     """Upload a large report through the API, open the imports page while it runs, watch it finish."""
     body, boundary = _multipart({"build": "bulk-1", "started": "2026-11-28T08:00:00Z"},
-                                ("files", "bulk.xml", big_report(30_000)))
+                                ("files", "bulk.xml", big_report(20_000)))
     request = urllib.request.Request(
         site.page_url(f"/api/v1/projects/{site.slug}/results/"), data=body, method="POST",
         headers={"Authorization": f"Bearer {site.token}", "Content-Type": f"multipart/form-data; boundary={boundary}"})
