@@ -24,7 +24,7 @@ def test_admin_form_accepts_the_demo_map(tmp_path):
     from demo_fixtures.generate import generate
     from demo_fixtures.scenario import ScenarioParams
 
-    generate(tmp_path, params=ScenarioParams.for_scale("demo", n_tests=30, n_days=14, n_defects=5))
+    generate(tmp_path, params=ScenarioParams.for_scale("demo", n_tests=30, n_days=14, n_defects=20))
     definition = (tmp_path / "defects.columnmap.json").read_text(encoding="utf-8")
     project = Project.objects.create(slug="p", name="P")
     form = DefectColumnMapForm(data={"project": project.pk, "name": "export", "definition": definition})
