@@ -14,7 +14,7 @@ from typing import Any
 from urllib.parse import urlencode
 
 from django.core.cache import cache
-from django.db.models import Max
+from django.db.models import Count, Max
 from django.http import Http404, HttpRequest, HttpResponse
 from django.urls import path, reverse
 
@@ -75,11 +75,11 @@ def series_label(name: str) -> str:
 
 def _report(project, horizon: int) -> dict[str, Any]:
     """``forecast_report`` cached per project, horizon and data state (a computed one takes seconds)."""
-    stamp = ForecastSnapshot.objects.filter(project=project).aggregate(at=Max("computed_at"))["at"]
+    stored = ForecastSnapshot.objects.filter(project=project).aggregate(at=Max("computed_at"), n=Count("id"))
     cutoff = defects_data_cutoff(project_id=project.pk)
     key = (
-        f"barometer:forecast-report:{project.pk}:{horizon}:{stamp and stamp.isoformat()}:"
-        f"{cutoff and cutoff.isoformat()}"
+        f"barometer:forecast-report:{project.pk}:{horizon}:{stored['n']}:"
+        f"{stored['at'] and stored['at'].isoformat()}:{cutoff and cutoff.isoformat()}"
     )
     report = cache.get(key)
     if report is None:

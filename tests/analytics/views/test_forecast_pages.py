@@ -197,3 +197,36 @@ def test_a_project_without_defects_or_snapshots_still_gets_a_page_and_a_sheet(vi
     assert {week["expected"] for week in response.context["forecast"]} == {0.0}
     assert response.context["series"]["note"] in response.content.decode()
     assert viewer_client.get(url(project, "forecasts-sheet")).status_code == 200
+
+
+@pytest.mark.parametrize("name", ["forecasts", "forecasts-sheet", "forecasts-csv"])
+def test_queries_do_not_grow_with_the_number_of_components(viewer_client, outlook, name):
+    # Common practice (django-rest-framework's test suite pins query counts): pages must not go N+1.
+    from django.core.cache import cache
+    from django.db import connection
+    from django.test.utils import CaptureQueriesContext
+
+    from tests.analytics.views.test_forecast_pages_support import snapshot_payload, store
+
+    project, _ = outlook
+    viewer_client.get(url(project, name))  # warm the session and any one-off lookups
+    cache.clear()  # both measured requests read the snapshots (no cached report)
+    with CaptureQueriesContext(connection) as few:
+        assert viewer_client.get(url(project, name)).status_code == 200
+    for number in range(5):
+        store(project, f"Extra component {number}", snapshot_payload(1.0 + number))
+    cache.clear()
+    with CaptureQueriesContext(connection) as many:
+        response = viewer_client.get(url(project, name))
+    assert response.status_code == 200
+    assert b"Extra component 4" in response.content  # the new snapshots were read, not an old cached report
+    assert len(many) == len(few)
+
+
+def test_a_new_snapshot_is_shown_without_waiting_for_the_cache(viewer_client, outlook):
+    from tests.analytics.views.test_forecast_pages_support import snapshot_payload, store
+
+    project, _ = outlook
+    assert b"Harbour Lights" not in viewer_client.get(url(project)).content
+    store(project, "Harbour Lights", snapshot_payload(2.0))  # same computed_at as the others
+    assert b"Harbour Lights" in viewer_client.get(url(project)).content
