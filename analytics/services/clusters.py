@@ -300,6 +300,16 @@ def _defect_links_refresh(
     return len(wanted)
 
 
+def cluster_defect_links_refresh(*, project_id: int) -> int:
+    """Recompute the defect suggestions of every cluster holding failures (e.g. after a defect import).
+
+    No refit. Suggestions that no longer qualify are dropped; confirmed links are kept. Returns the number
+    of suggestions.
+    """
+    with transaction.atomic():
+        return _defect_links_refresh(project_id=project_id)
+
+
 # --------------------------------------------------------------------------------------------------- fitted state
 def _clusterer_from_db(*, project_id: int) -> FailureClusterer | None:
     """Rebuild a fitted clusterer from the stored labels (no clustering: vectoriser and centroids only)."""

@@ -25,6 +25,7 @@ from analytics.services.clusters import (
     ERR_SPLIT_EMPTY,
     ERR_SPLIT_FOREIGN,
     cluster_defect_link_confirm,
+    cluster_defect_links_refresh,
     cluster_merge,
     cluster_split,
     clusters_assign_build,
@@ -214,3 +215,21 @@ def test_merge_moves_confirmed_defect_links(triager):
     assert not ClusterDefectLink.objects.filter(cluster=a).exists()
     clusters_refresh(project_id=project.pk)
     assert ClusterDefectLink.objects.filter(cluster=b, defect=defect, confirmed=True).exists()
+
+
+def test_defect_links_refresh_after_a_defect_import_needs_no_refit(triager):
+    project = make_project()
+    _, truth = history(project, builds=2)
+    clusters_refresh(project_id=project.pk)
+    zero = one(cluster_by_cause(project, truth)["zero-capacity"])
+    labels = dict(FailureCluster.objects.filter(project=project).values_list("pk", "label"))
+    defect = _defect(
+        project,
+        "BW-5001",
+        "Occupancy report crashes: division by zero",
+        "ZeroDivisionError: division by zero when a pontoon has no berths.",
+    )
+    assert not ClusterDefectLink.objects.filter(defect=defect).exists()
+    assert cluster_defect_links_refresh(project_id=project.pk) >= 1
+    assert ClusterDefectLink.objects.filter(cluster=zero, defect=defect, confirmed=False).exists()
+    assert dict(FailureCluster.objects.filter(project=project).values_list("pk", "label")) == labels
