@@ -205,4 +205,7 @@ def forecast_chart(
             )
     fig.update_yaxes(title_text=None if compact else "defects per week", rangemode="tozero")
     fig.update_xaxes(title_text=None if compact else "week starting (Monday)")
+    if compact:
+        fig.update_xaxes(nticks=4, tickformat="%b", tickangle=0)
+        fig.update_yaxes(nticks=4)
     return fig

@@ -46,6 +46,9 @@ SHEET_WEEKS = (4, 8, 12)
 SHEET_HISTORY_WEEKS = 26
 Z_80 = 1.2815515655446004  # standard normal 90 % quantile: scipy.stats.norm.ppf(0.9)
 SHEET_CHART_SIZE = (224, 104)
+SHEET_DENSE_FROM = 10  # from this many series on: four columns and smaller charts in print
+SHEET_DENSE_CHART_SIZE = (166, 78)
+SHEET_ONE_PAGE_MAX = 16  # more series than this print on several pages (the sheet says so)
 REPORT_CACHE_SECONDS = 6 * 3600
 
 UNKNOWN_SERIES = "No forecast for series {name!r} in this project."
@@ -246,9 +249,9 @@ def forecasts_csv(request: HttpRequest) -> HttpResponse:
     return response
 
 
-def _static_div(fig, *, div_id: str) -> str:
+def _static_div(fig, *, div_id: str, size: tuple[int, int]) -> str:
     """A fixed-size, non-interactive figure for the printed sheet (no resizing while printing)."""
-    fig.update_layout(width=SHEET_CHART_SIZE[0], height=SHEET_CHART_SIZE[1])
+    fig.update_layout(width=size[0], height=size[1])
     return fig.to_html(
         full_html=False,
         include_plotlyjs=False,
@@ -289,6 +292,7 @@ def forecasts_sheet(request: HttpRequest) -> HttpResponse:
     """One printable page: every series, the next 4 / 8 / 12 weeks, model, accuracy, residual, trend."""
     horizon = max(SHEET_WEEKS)
     report = _report(request.project, horizon)
+    dense = len(report["series"]) >= SHEET_DENSE_FROM
     cards = []
     for number, payload in enumerate(report["series"]):
         chosen = next((row for row in payload["backtest"] if row.get("chosen")), None)
@@ -305,11 +309,14 @@ def forecasts_sheet(request: HttpRequest) -> HttpResponse:
                 "chart": _static_div(
                     _figure(payload, compact=True, history_weeks=SHEET_HISTORY_WEEKS),
                     div_id=f"sheet-chart-{number}",
+                    size=SHEET_DENSE_CHART_SIZE if dense else SHEET_CHART_SIZE,
                 ),
             }
         )
     context = {
         "cards": cards,
+        "dense": dense,
+        "fits_one_page": len(cards) <= SHEET_ONE_PAGE_MAX,
         "report": report,
         "source_text": _source_text(report),
         "page_url": reverse("forecasts", kwargs={"slug": request.project.slug}),

@@ -230,3 +230,24 @@ def test_a_new_snapshot_is_shown_without_waiting_for_the_cache(viewer_client, ou
     assert b"Harbour Lights" not in viewer_client.get(url(project)).content
     store(project, "Harbour Lights", snapshot_payload(2.0))  # same computed_at as the others
     assert b"Harbour Lights" in viewer_client.get(url(project)).content
+
+
+def test_sheet_packs_many_series_and_says_when_they_need_a_second_page(viewer_client, outlook):
+    from analytics.views.forecasts import SHEET_DENSE_FROM, SHEET_ONE_PAGE_MAX
+    from tests.analytics.views.test_forecast_pages_support import snapshot_payload, store
+
+    project, snapshots = outlook
+    response = viewer_client.get(url(project, "forecasts-sheet"))
+    assert (
+        not response.context["dense"] and "more than fit on one printed page" not in response.content.decode()
+    )
+    for number in range(SHEET_DENSE_FROM - len(snapshots)):
+        store(project, f"Dock module {number:02d}", snapshot_payload(1.0))
+    response = viewer_client.get(url(project, "forecasts-sheet"))
+    assert response.context["dense"] and 'class="sheet-grid dense"' in response.content.decode()
+    for number in range(SHEET_ONE_PAGE_MAX + 1 - SHEET_DENSE_FROM):
+        store(project, f"Slipway module {number:02d}", snapshot_payload(1.0))
+    response = viewer_client.get(url(project, "forecasts-sheet"))
+    assert (
+        f"{SHEET_ONE_PAGE_MAX + 1} series are more than fit on one printed page" in response.content.decode()
+    )
