@@ -34,3 +34,12 @@ demo: venv migrate
 
 clean:
 	rm -rf var test-artifacts
+
+# Benchmarks (bench/): ratios measured in one run against PostgreSQL on 127.0.0.1:5432 (and SQLite);
+# they write bench/RESULTS.md and bench/results.json. bench-quick: small scale; bench: full scale.
+.PHONY: bench bench-quick
+bench-quick: venv
+	DEBUG=0 $(PY) -m bench.run --scale quick
+
+bench: venv
+	DEBUG=0 $(PY) -m bench.run --scale full
