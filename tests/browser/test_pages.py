@@ -61,6 +61,11 @@ def test_root_asks_to_sign_in_then_opens_this_week(browser, site):
     page.click("button[type=submit]")
     page.wait_for_url(f"**/p/{site.slug}/")
     assert page.locator("h1").inner_text().startswith("This week")
+    # the project switcher goes through "/" and lands on the chosen project's page
+    _open(page, site, _path("imports", slug=site.slug))
+    with page.expect_navigation():
+        page.select_option("#project-switch", site.slug)
+    assert page.url.endswith(f"/p/{site.slug}/")
     context.close()
 
 
@@ -252,3 +257,11 @@ def test_forecasts_page_and_png_export(admin_page, site):
     # IHDR follows the signature (ISO/IEC 15948 §11.2.2): width and height are 4-byte big-endian integers
     width, height = int.from_bytes(data[16:20], "big"), int.from_bytes(data[20:24], "big")
     assert width >= 400 and height >= 200, (width, height)
+
+
+def test_printable_planning_sheet(admin_page, site):
+    page = _open(admin_page, site, _path("forecasts-sheet", slug=site.slug))
+    _charts_drawn(page)
+    page.emulate_media(media="print")
+    screenshot(page, "forecasts-sheet-print")
+    _clean(page)

@@ -286,3 +286,18 @@ def test_map_page_of_an_upload_not_in_the_session_is_404(client, triager, projec
     assert client.get(_url("defects-map", sha="0" * 64)).status_code == 404
     session = client.session
     assert SESSION_UPLOADS not in session
+
+
+IMPORTS_QUERIES = 11  # session, user, project, 2 permission reads, count, builds, their jobs, latest jobs, branches, switcher
+
+
+def test_imports_page_query_count_does_not_grow_with_builds(client, triager, imported, django_assert_num_queries):
+    client.force_login(triager)
+    client.get(_url("imports"))
+    with django_assert_num_queries(IMPORTS_QUERIES):
+        client.get(_url("imports"))
+    for n in range(5):
+        _import(imported["variants"].project, (FIXTURES / "failure_variants.xml").read_bytes(),
+                f"again-{n}.xml", f"extra-{n}")
+    with django_assert_num_queries(IMPORTS_QUERIES):
+        client.get(_url("imports"))
