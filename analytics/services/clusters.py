@@ -13,6 +13,7 @@ its row with zero failures (a merged one also points at the cluster it went into
 from __future__ import annotations
 
 import hashlib
+import itertools
 import logging
 from collections.abc import Iterable
 
@@ -71,6 +72,7 @@ ERR_NOT_TRIAGER = (
     "only signed-in people with the triage permission (group 'triagers') may change failure clusters"
 )
 _UPDATE_CHUNK = 5000
+_MEMO_SIZE = 100_000
 
 
 def distance_threshold() -> float:
@@ -84,13 +86,16 @@ def _state_cache_key(project_id: int) -> str:
 
 # --------------------------------------------------------------------------------------------------- signatures
 def _results_sign(by_key: dict[str, list[int]]) -> None:
-    """Write the signature keys onto their results: one prepared UPDATE run over (key, id) pairs in batches."""
+    """Write the signature keys onto their results: one prepared UPDATE run over (key, id) pairs in batches.
+
+    Called after the read cursor is exhausted (SQLite does not isolate a cursor from writes to its table).
+    """
     table = connection.ops.quote_name(TestResult._meta.db_table)
     sql = f"UPDATE {table} SET signature = %s WHERE id = %s"  # noqa: S608 - table name from the model
-    pairs = [(key, pk) for key, ids in by_key.items() for pk in ids]
+    pairs = ((key, pk) for key, ids in by_key.items() for pk in ids)
     with connection.cursor() as cursor:
-        for start in range(0, len(pairs), _UPDATE_CHUNK):
-            cursor.executemany(sql, pairs[start : start + _UPDATE_CHUNK])
+        while batch := list(itertools.islice(pairs, _UPDATE_CHUNK)):
+            cursor.executemany(sql, batch)
 
 
 def signatures_fill(*, project_id: int, build_id: int | None = None) -> set[str]:
@@ -111,6 +116,8 @@ def signatures_fill(*, project_id: int, build_id: int | None = None) -> set[str]
         signature = memo.get(digest)
         if signature is None:
             signature = failure_signature(failure_type=triple[0], message=triple[1], details=triple[2])
+            if len(memo) >= _MEMO_SIZE:
+                memo.clear()
             memo[digest] = signature
         by_key.setdefault(signature.key, []).append(result_id)
         signed.setdefault(signature.key, signature)
