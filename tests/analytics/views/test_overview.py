@@ -282,3 +282,19 @@ def test_overview_query_count_is_pinned_and_does_not_grow_with_history(client_in
         client_in.get(url, {"week": WEEK_B.isoformat()})
     with django_assert_num_queries(OVERVIEW_QUERIES):
         client_in.get(url, {"week": WEEK_B.isoformat(), "component": world["bookings"].pk})
+
+
+def test_flaky_share_links_to_the_flaky_list_with_the_same_component(client_in, world):
+    from urllib.parse import parse_qs, urlsplit
+
+    try:
+        flaky_list = reverse("flaky-list", kwargs={"slug": "berthwise"})
+    except Exception:  # noqa: BLE001 - the flaky pages belong to another part of the dashboard
+        pytest.skip("the flaky-tests pages are not mounted")
+    figures = _figures(client_in.get(_url(), {"week": WEEK_B.isoformat(), "component": world["bookings"].pk}))
+    href = figures["flaky-share"].href
+    parts = urlsplit(href)
+    assert parts.path == flaky_list
+    assert parse_qs(parts.query) == {"verdict": ["flaky"], "component": ["Booking API"]}
+    listed = client_in.get(href)
+    assert listed.status_code == 200 and b"test_breaks" in listed.content and b"test_steady" not in listed.content
