@@ -9,6 +9,7 @@ from __future__ import annotations
 
 from collections import defaultdict
 
+from django.conf import settings
 from django.contrib import messages
 from django.core.exceptions import PermissionDenied
 from django.db import transaction
@@ -37,6 +38,7 @@ from ingest.tasks import job_enqueue
 ERR_NOT_ALLOWED = "Only triagers and admins may retry imports or upload defects."
 ERR_NOT_RETRYABLE = "Only a failed import, or one that never reached a worker, can be retried (this one is {status})."
 ERR_NO_FILE = "Choose a defect export file (CSV or JSON) to upload."
+ERR_TOO_LARGE = "{name} is {size} bytes; the limit is {limit} bytes (BAROMETER_MAX_UPLOAD_BYTES)."
 ERR_UPLOAD_GONE = "This upload is no longer in your session; upload the file again."
 MSG_RETRIED = "Import #{pk} was queued again."
 MSG_QUEUED = "The defect export was stored and its import #{pk} is queued."
@@ -259,8 +261,11 @@ def defects_upload(request: HttpRequest) -> HttpResponse:
     error = ""
     if request.method == "POST":
         upload = request.FILES.get("file")
+        limit = settings.BAROMETER_MAX_UPLOAD_BYTES
         if upload is None:
             error = ERR_NO_FILE
+        elif upload.size > limit:
+            error = ERR_TOO_LARGE.format(name=upload.name, size=upload.size, limit=limit)
         else:
             sha, size, rel = raw_file_store(upload)
             uploads = _uploads(request)

@@ -301,3 +301,13 @@ def test_imports_page_query_count_does_not_grow_with_builds(client, triager, imp
                 f"again-{n}.xml", f"extra-{n}")
     with django_assert_num_queries(IMPORTS_QUERIES):
         client.get(_url("imports"))
+
+
+def test_an_upload_over_the_limit_is_refused_with_its_size(client, triager, project, settings):
+    from ingest.views import ERR_TOO_LARGE
+
+    settings.BAROMETER_MAX_UPLOAD_BYTES = 10
+    client.force_login(triager)
+    response = client.post(_url("defects-upload"), {"file": SimpleUploadedFile("big.csv", DEFECTS_CSV)})
+    expected = ERR_TOO_LARGE.format(name="big.csv", size=len(DEFECTS_CSV), limit=10)
+    assert response.status_code == 200 and expected in response.content.decode()
