@@ -311,3 +311,13 @@ def test_an_upload_over_the_limit_is_refused_with_its_size(client, triager, proj
     response = client.post(_url("defects-upload"), {"file": SimpleUploadedFile("big.csv", DEFECTS_CSV)})
     expected = ERR_TOO_LARGE.format(name="big.csv", size=len(DEFECTS_CSV), limit=10)
     assert response.status_code == 200 and expected in response.content.decode()
+
+
+def test_job_list_filters_by_kind_and_downloads_the_filtered_rows(client, viewer, imported):
+    client.force_login(viewer)
+    jobs = client.get(_url("import-jobs"), {"kind": "defects"}).context["jobs"]
+    assert jobs == []
+    results = client.get(_url("import-jobs"), {"kind": "results", "status": "done"}).context["jobs"]
+    assert sorted(j["id"] for j in results) == sorted([imported["variants"].pk, imported["xss"].pk])
+    data = client.get(_url("import-jobs"), {"status": "failed", "download": "json"}).json()
+    assert [row["id"] for row in data] == [imported["broken"].pk]
