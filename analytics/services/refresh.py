@@ -29,12 +29,14 @@ def _recorded(*, project_id: int, detector: str, scope: str, run: Callable[[], i
 
 def analytics_refresh(*, project_id: int) -> dict[str, tuple[int, float]]:
     """Full refresh: every detector on the whole window. Returns {detector: (rows written, seconds)}."""
+    from analytics.services.clusters import clusters_refresh
     from analytics.services.duplicates import defect_duplicates_refresh
     from analytics.services.flaky import flaky_scores_refresh
     from analytics.services.forecasts import forecasts_refresh
 
     steps: dict[str, Callable[[], int]] = {
         "flaky": lambda: flaky_scores_refresh(project_id=project_id),
+        "clusters": lambda: clusters_refresh(project_id=project_id),
         "forecasts": lambda: forecasts_refresh(project_id=project_id),
         "duplicates": lambda: defect_duplicates_refresh(project_id=project_id),
     }
@@ -43,13 +45,15 @@ def analytics_refresh(*, project_id: int) -> dict[str, tuple[int, float]]:
 
 
 def analytics_refresh_after_defects(*, project_id: int) -> dict[str, tuple[int, float]]:
-    """After a defect import: the detectors that read defects (forecasts, duplicate suggestions)."""
+    """After a defect import: what reads defects (forecasts, duplicate suggestions, cause ↔ defect links)."""
+    from analytics.services.clusters import cluster_defect_links_refresh
     from analytics.services.duplicates import defect_duplicates_refresh
     from analytics.services.forecasts import forecasts_refresh
 
     steps: dict[str, Callable[[], int]] = {
         "forecasts": lambda: forecasts_refresh(project_id=project_id),
         "duplicates": lambda: defect_duplicates_refresh(project_id=project_id),
+        "cluster_defects": lambda: cluster_defect_links_refresh(project_id=project_id),
     }
     return {name: _recorded(project_id=project_id, detector=name, scope="defects", run=run)
             for name, run in steps.items()}
@@ -57,12 +61,14 @@ def analytics_refresh_after_defects(*, project_id: int) -> dict[str, tuple[int, 
 
 def analytics_refresh_after_build(*, project_id: int, build_id: int) -> dict[str, tuple[int, float]]:
     """Incremental refresh after one build: cost grows with the build, not with the history."""
+    from analytics.services.clusters import clusters_assign_build
     from analytics.services.flaky import flaky_scores_refresh
     from ingest.models import TestResult
 
     test_ids = set(TestResult.objects.filter(build_id=build_id).values_list("test_case_id", flat=True))
     steps: dict[str, Callable[[], int]] = {
         "flaky": lambda: flaky_scores_refresh(project_id=project_id, test_ids=test_ids),
+        "clusters": lambda: clusters_assign_build(project_id=project_id, build_id=build_id),
     }
     return {name: _recorded(project_id=project_id, detector=name, scope="build", run=run)
             for name, run in steps.items()}

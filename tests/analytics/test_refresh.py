@@ -48,3 +48,18 @@ def test_refresh_command_names_each_detector(capsys):
     Project.objects.create(slug="p", name="P")
     call_command("refresh_analytics", "--project", "p")
     assert "flaky:" in capsys.readouterr().out
+
+
+@pytest.mark.django_db
+def test_each_refresh_path_runs_its_detectors():
+    from django.utils import timezone
+
+    from ingest.models import Build
+
+    project = Project.objects.create(slug="p", name="P")
+    build = Build.objects.create(project=project, external_id="1", started_at=timezone.now())
+    assert set(refresh.analytics_refresh(project_id=project.pk)) == {"flaky", "clusters", "forecasts", "duplicates"}
+    assert set(refresh.analytics_refresh_after_build(project_id=project.pk, build_id=build.pk)) == {"flaky", "clusters"}
+    assert set(refresh.analytics_refresh_after_defects(project_id=project.pk)) == {
+        "forecasts", "duplicates", "cluster_defects"}
+    assert AnalyticsRun.objects.filter(project=project, ok=False).count() == 0
