@@ -1,8 +1,9 @@
 """Likely duplicate defects: store the pairs the pure detector finds, for a person to triage.
 
-The detector is :func:`analytics.core.clustering.duplicate_defects` (TF-IDF cosine similarity of title and
-description). Each pair is stored once as a :class:`analytics.models.DefectDuplicate` with
-``defect_a.key < defect_b.key``.
+The detector is :func:`analytics.core.duplicates.duplicate_candidates`: TF-IDF cosine similarity of title and
+description (numbers and ids ignored), each defect compared with the defects created before it, and only its
+``top_k`` most similar earlier defects suggested, when they reach ``threshold``. Each pair is stored once as a
+:class:`analytics.models.DefectDuplicate` with ``defect_a.key < defect_b.key``.
 
 A person's decision is never overwritten: a pair marked confirmed or dismissed keeps its status (and its
 score) whatever later refreshes find. Suggested pairs are re-scored, new ones added, and suggestions that
@@ -14,17 +15,29 @@ from __future__ import annotations
 import pandas as pd
 from django.db import transaction
 
-from analytics.core.clustering import DEFAULT_DUPLICATE_THRESHOLD, duplicate_defects
+from analytics.core.duplicates import DEFAULT_MIN_SCORE, DEFAULT_TOP_K, duplicate_candidates
 from analytics.models import DefectDuplicate
 from ingest.models import Defect
 
 
 @transaction.atomic
-def defect_duplicates_refresh(*, project_id: int, threshold: float = DEFAULT_DUPLICATE_THRESHOLD) -> int:
-    """Recompute the likely duplicate pairs of one project; return how many pairs reach ``threshold``."""
-    rows = list(Defect.objects.filter(project_id=project_id).values_list("id", "key", "title", "description"))
-    frame = pd.DataFrame(rows, columns=["id", "key", "title", "description"])
-    pairs = duplicate_defects(frame[["key", "title", "description"]], threshold=threshold)
+def defect_duplicates_refresh(
+    *, project_id: int, threshold: float = DEFAULT_MIN_SCORE, top_k: int = DEFAULT_TOP_K
+) -> int:
+    """Recompute the likely duplicate pairs of one project; return how many pairs the detector suggests.
+
+    ``threshold`` is the detector's ``min_score`` (smallest cosine similarity), ``top_k`` how many of a
+    defect's most similar earlier defects may be suggested.
+    """
+    rows = list(
+        Defect.objects.filter(project_id=project_id).values_list(
+            "id", "key", "title", "description", "created_at"
+        )
+    )
+    frame = pd.DataFrame(rows, columns=["id", "key", "title", "description", "created"])
+    pairs = duplicate_candidates(
+        frame[["key", "title", "description", "created"]], min_score=threshold, top_k=top_k
+    )
     id_of = dict(zip(frame["key"], frame["id"], strict=True))
     found = {
         (int(id_of[a]), int(id_of[b])): float(score)

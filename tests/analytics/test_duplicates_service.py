@@ -161,7 +161,7 @@ def test_planted_duplicates_are_found_with_precision_and_recall(imported, capsys
 def test_refresh_keeps_a_persons_decision_and_adds_nothing_twice(imported):
     defect_duplicates_refresh(project_id=imported.pk)
     pairs = stored_pairs(imported)
-    confirmed, dismissed = pairs[frozenset(("BW-1", "BW-13"))], pairs[frozenset(("BW-2", "BW-14"))]
+    confirmed, dismissed = pairs[frozenset(("BW-11", "BW-16"))], pairs[frozenset(("BW-2", "BW-14"))]
     confirmed.status, confirmed.score = DefectDuplicate.Status.CONFIRMED, 0.123
     confirmed.save()
     dismissed.status = DefectDuplicate.Status.DISMISSED
@@ -170,8 +170,8 @@ def test_refresh_keeps_a_persons_decision_and_adds_nothing_twice(imported):
     Defect.objects.filter(key="BW-14").update(title="Tide table wrong", description="Low tide shown at noon.")
     defect_duplicates_refresh(project_id=imported.pk)
     after = stored_pairs(imported)
-    assert after[frozenset(("BW-1", "BW-13"))].status == DefectDuplicate.Status.CONFIRMED
-    assert after[frozenset(("BW-1", "BW-13"))].score == 0.123
+    assert after[frozenset(("BW-11", "BW-16"))].status == DefectDuplicate.Status.CONFIRMED
+    assert after[frozenset(("BW-11", "BW-16"))].score == 0.123
     assert after[frozenset(("BW-2", "BW-14"))].status == DefectDuplicate.Status.DISMISSED
     assert set(after) == set(pairs)  # nothing added twice, nothing a person decided removed
     # a suggestion whose texts no longer match is withdrawn
