@@ -40,19 +40,20 @@ class Scale:
 SCALES = {
     "quick": Scale(
         name="quick",
-        large={"n_tests": 5_000, "n_days": 90, "builds_per_day": 15.0, "n_defects": 2_000},
-        small_results=20_000,
-        ingest_results=100_000,
+        large={"n_tests": 2_000, "n_days": 90, "builds_per_day": 10.0, "n_defects": 1_000},
+        small_results=10_000,
+        ingest_results=20_000,
         repeats=3,
-        page_requests=30,
+        page_requests=20,
         memory_file_mb=200,
         cluster_failures=100_000,
         uploads=20,
         upload_results=2_000,
         new_build_results=2_000,
         notes=(
-            "quick scale: the history pair is about 20 thousand vs 0.5 million results (not 50 thousand vs "
-            "5 million) and clustering gets the failures the smaller history holds (fewer than 100 000)",
+            "quick scale: the history pair is about 10 thousand vs 0.15 million results (not 50 thousand vs "
+            "5 million), the ingest corpus is small PR builds, and clustering gets the failures this history "
+            "holds (fewer than 100 000); `make bench` runs the full sizes",
         ),
     ),
     "full": Scale(
@@ -97,6 +98,7 @@ def django_env(database_url: str, **extra: str) -> dict[str, str]:
             "CSRF_COOKIE_SECURE": "0",
             "BAROMETER_EAGER_IN_THREAD": "0",
             "MEDIA_ROOT": str(DATA_DIR / "media"),
+            "STATIC_ROOT": str(DATA_DIR / "static"),
             "LOG_LEVEL": "WARNING",
             "PYTHONPATH": str(ROOT),
         }

@@ -67,3 +67,18 @@ def use_database(name: str) -> None:
         return
     connection.close()
     connection.settings_dict["NAME"] = name
+
+
+def pg_analyze(name: str) -> None:
+    """VACUUM ANALYZE a benchmark database: what autovacuum does on a production server after a bulk load.
+
+    This server runs with ``autovacuum = off``; without statistics the planner misjudges the rollup table
+    and some page queries take seconds instead of milliseconds (see RESULTS.md).
+    """
+    subprocess.run(["psql", "-h", "127.0.0.1", "-U", "postgres", "-d", name, "-qc", "VACUUM ANALYZE"], check=True)
+
+
+def pg_setting(name: str) -> str:
+    out = subprocess.run(["psql", "-h", "127.0.0.1", "-U", "postgres", "-qAtc", f"SHOW {name}"],
+                         capture_output=True, text=True)
+    return out.stdout.strip() or "?"

@@ -60,6 +60,18 @@ def ingest_figures(data: dict, *, label: str) -> list[dict]:
     return out
 
 
+def ingest_overhead_fact(data: dict, *, label: str) -> str:
+    """What the full ingest spends beyond parse + bulk load, per build (median over the repeats)."""
+    t = data["timings"]
+    extra = [c - a - b for c, a, b in zip(t["full"]["wall"], t["parse"]["wall"], t["bulk"]["wall"])]
+    per_build = summarise([e / data["files"] for e in extra])
+    per_row = data["results"] / data["files"]
+    return (f"ingest {label}: the corpus has {data['files']} builds of {per_row:,.0f} results on average; the full "
+            f"ingest spends {per_build.median * 1000:.0f} ms per build ({per_build.min * 1000:.0f}–"
+            f"{per_build.max * 1000:.0f}) beyond parsing and bulk-loading its rows (storing the raw file, the job, "
+            f"build and report rows, test-case ids, the weekly rollup, the commit)")
+
+
 def memory_check(idle: dict, ingest: dict) -> TargetCheck:
     limit = 2 * idle["rss_mb"] + MEMORY_EXTRA_MB
     return target_check(

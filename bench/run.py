@@ -19,7 +19,7 @@ from pathlib import Path
 from bench import report
 from bench.config import BENCH_DIR, DATA_DIR, PROJECT_SLUG, PYTHON, ROOT, SCALES, Scale, database_url, db_name
 from bench.config import django_env as env_for
-from bench.db import migrate, pg_database_create
+from bench.db import migrate, pg_analyze, pg_database_create, pg_setting
 
 SECTIONS = ("prepare", "ingest", "memory", "clustering", "analytics", "pages", "load", "profile")
 SECTION_TIMEOUT = {"quick": 900, "full": 3600}
@@ -76,6 +76,7 @@ def _machine() -> dict:
         "psycopg": version("psycopg"),
         "gunicorn": version("gunicorn"),
         "celery": version("celery"),
+        "postgresql autovacuum": pg_setting("autovacuum") + " (the benchmark runs VACUUM ANALYZE after loading)",
     }
 
 
@@ -93,12 +94,14 @@ def _prepare_db(scale: Scale, which: str, info: dict, parts: Path, results: dict
     url = database_url(scale.name, which)
     if stamp.exists() and json.loads(stamp.read_text()).get("key") == wanted:
         migrate(url)
+        pg_analyze(db_name(scale.name, which))
         results["sections"][f"prepare_{which}"] = json.loads(stamp.read_text())["data"]
         results["facts"].append(f"{which} history database reused from an earlier run with the same data")
         return
     pg_database_create(db_name(scale.name, which), drop=True)
     migrate(url)
     data = _run_section("prepare", scale, parts / f"prepare_{which}.json", env=env_for(url), which=which)
+    pg_analyze(db_name(scale.name, which))
     stamp.write_text(json.dumps({"key": wanted, "data": data}))
     results["sections"][f"prepare_{which}"] = data
 
@@ -108,7 +111,13 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--scale", choices=sorted(SCALES), default="quick")
     p.add_argument("--only", nargs="*", choices=SECTIONS, help="run only these sections")
     p.add_argument("--no-sqlite", action="store_true")
+    p.add_argument("--render", action="store_true", help="only re-render RESULTS.md from bench/results.json")
     args = p.parse_args(argv)
+    findings = BENCH_DIR / "FINDINGS.md"
+    if args.render:
+        results = json.loads((BENCH_DIR / "results.json").read_text())
+        (BENCH_DIR / "RESULTS.md").write_text(report.render(results, findings.read_text() if findings.exists() else ""))
+        return 0
     scale = SCALES[args.scale]
     only = set(args.only or SECTIONS)
     work = DATA_DIR / scale.name
@@ -181,8 +190,8 @@ def main(argv: list[str] | None = None) -> int:
 
     if "memory" in only:
         def memory():
-            big = work / "big-report.xml"
-            if not big.exists() or big.stat().st_size < scale.memory_file_mb * 2**20:
+            big = work / f"big-report-{scale.memory_file_mb}MB.xml"
+            if not big.exists():
                 cases, size = junit_big_write(big, sample, megabytes=scale.memory_file_mb)
                 log(f"memory: wrote {big} ({size / 2**20:.0f} MB, {cases:,} testcases)")
             pg_database_create(db_name(scale.name, "memory"), drop=True)
@@ -232,12 +241,12 @@ def main(argv: list[str] | None = None) -> int:
     if "profile" in only:
         attempt("profile", lambda: results["sections"].__setitem__(
             "profile", _run_section("profile", scale, parts / "profile.json",
-                                    env=env_for(database_url(scale.name, "ingest")))))
+                                    env=env_for(database_url(scale.name, "ingest"),
+                                                BENCH_NEW_BUILD=str(new_build)))))
 
     results["meta"]["finished"] = datetime.now(UTC).strftime("%Y-%m-%d %H:%M")
     results["meta"]["machine"]["load average at end"] = " ".join(f"{x:.1f}" for x in os.getloadavg())
     summarise_results(results, scale)
-    findings = BENCH_DIR / "FINDINGS.md"
     (BENCH_DIR / "results.json").write_text(json.dumps(results, indent=1, default=str) + "\n")
     (BENCH_DIR / "RESULTS.md").write_text(report.render(results, findings.read_text() if findings.exists() else ""))
     log(f"wrote {BENCH_DIR / 'RESULTS.md'} and results.json")
@@ -259,6 +268,7 @@ def summarise_results(results: dict, scale: Scale) -> None:
         if key in s:
             add(key, lambda k=key, lb=label: (targets.extend(report.ingest_checks(s[k], label=lb)),
                                                figures.extend(report.ingest_figures(s[k], label=lb))))
+            add(key, lambda k=key, lb=label: results["facts"].append(report.ingest_overhead_fact(s[k], label=lb)))
     for which in ("small", "large"):
         data = s.get(f"prepare_{which}")
         if data:
@@ -330,6 +340,11 @@ def summarise_results(results: dict, scale: Scale) -> None:
         top = ", ".join(f"{h['function']} ({h['file']}) {h['self_seconds']:.1f} s" for h in pr["heaviest_self"][:6])
         results["facts"].append(f"profile of the full ingest ({pr['results']:,} results, {pr['wall']:.0f} s wall, "
                                 f"{pr['cpu']:.0f} s CPU): heaviest self time: {top}; report {pr['text_report']}")
+        inc = pr.get("incremental")
+        if inc:
+            top = ", ".join(f"{h['function']} ({h['file']}) {h['self_seconds']:.1f} s" for h in inc["heaviest_self"][:6])
+            results["facts"].append(f"profile of the refresh after one build at the large history ({inc['wall']:.0f} s "
+                                    f"wall, {inc['cpu']:.0f} s CPU): heaviest self time: {top}; report {inc['text_report']}")
     results["targets"] = [c.as_dict() for c in targets]
     results["figures"] = figures
 

@@ -13,6 +13,8 @@ from bench.db import django_setup, use_database
 PAGE_NAMES = ("overview", "flaky-list", "causes-list", "forecasts", "imports")
 #: List APIs, relative to /api/v1/projects/<slug>/.
 API_PATHS = ("flaky-tests/", "quarantine/", "failure-clusters/", "forecasts/")
+#: Seconds of requests per page (both sizes together) the run aims at.
+PAGE_BUDGET = {"quick": 12.0, "full": 120.0}
 
 
 def targets(slug: str) -> tuple[dict[str, str], list[str]]:
@@ -58,14 +60,21 @@ def main() -> None:
     out: dict = {"missing": missing, "pages": {}}
     for label, url in found.items():
         entry: dict = {"url": url, "status": {}, "queries": {}, "seconds": {"small": [], "large": []}}
+        warm = 0.0
         for which, name in sizes.items():  # warm-up, status and query count
             use_database(name)
+            started = time.perf_counter()
             clients[which].get(url)
+            warm += time.perf_counter() - started
             with CaptureQueriesContext(connection) as ctx:
                 response = clients[which].get(url)
             entry["status"][which] = response.status_code
             entry["queries"][which] = len(ctx.captured_queries)
-        for _ in range(scale.page_requests):
+        # A page that takes seconds gets fewer requests (at least 5 per size), so that one slow page cannot
+        # eat the run; the number actually made is recorded.
+        n = max(5, min(scale.page_requests, int(PAGE_BUDGET[scale.name] / max(warm, 1e-3))))
+        entry["requests"] = n
+        for _ in range(n):
             for which, name in sizes.items():
                 use_database(name)
                 started = time.perf_counter()

@@ -153,3 +153,12 @@ def test_render_shows_target_beside_ratio_and_verdicts():
     assert "2.25 (2.00–2.50)" in line and "<= 1.5" in line and "**not met**" in line
     assert "per-build queries" in line
     assert "page overview: missing" in text and "found things" in text
+
+
+def test_ingest_overhead_per_build():
+    data = {"files": 10, "results": 1000, "timings": {
+        "parse": _timing([1.0, 1.0]), "bulk": _timing([1.0, 1.0]), "full": _timing([3.0, 4.0])}}
+    text = report.ingest_overhead_fact(data, label="pg")
+    # extra time 1 s and 2 s over 10 builds: 100 ms and 200 ms per build, median 150 ms
+    assert "150 ms per build (100–200)" in text
+    assert "100 results on average" in text
