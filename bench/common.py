@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import json
+import os
 import sys
 import time
 from pathlib import Path
@@ -18,7 +20,10 @@ def section_args(description: str) -> tuple[argparse.Namespace, Scale]:
     p.add_argument("--vendor", default="postgresql")
     p.add_argument("--which", default="")
     args = p.parse_args()
-    return args, SCALES[args.scale]
+    scale = SCALES[args.scale]
+    if os.environ.get("BENCH_REPEATS"):  # set by bench.run --repeats
+        scale = dataclasses.replace(scale, repeats=int(os.environ["BENCH_REPEATS"]))
+    return args, scale
 
 
 def result_write(path: Path, data: dict) -> None:

@@ -6,6 +6,7 @@ reported in RESULTS.md and the others still run. Writes bench/RESULTS.md and ben
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import json
 import os
 import platform
@@ -111,14 +112,21 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--scale", choices=sorted(SCALES), default="quick")
     p.add_argument("--only", nargs="*", choices=SECTIONS, help="run only these sections")
     p.add_argument("--no-sqlite", action="store_true")
-    p.add_argument("--render", action="store_true", help="only re-render RESULTS.md from bench/results.json")
+    p.add_argument("--repeats", type=int, help="override the scale's number of repeats (partial runs)")
+    p.add_argument("--render", action="store_true", help="only re-render RESULTS.md from results.json")
+    p.add_argument("--out-dir", type=Path, default=BENCH_DIR,
+                   help="where RESULTS.md and results.json go (default bench/; partial runs: elsewhere)")
     args = p.parse_args(argv)
     findings = BENCH_DIR / "FINDINGS.md"
+    out_dir: Path = args.out_dir
     if args.render:
-        results = json.loads((BENCH_DIR / "results.json").read_text())
-        (BENCH_DIR / "RESULTS.md").write_text(report.render(results, findings.read_text() if findings.exists() else ""))
+        results = json.loads((out_dir / "results.json").read_text())
+        (out_dir / "RESULTS.md").write_text(report.render(results, findings.read_text() if findings.exists() else ""))
         return 0
     scale = SCALES[args.scale]
+    if args.repeats:
+        scale = dataclasses.replace(scale, repeats=args.repeats)
+        os.environ["BENCH_REPEATS"] = str(args.repeats)
     only = set(args.only or SECTIONS)
     work = DATA_DIR / scale.name
     parts = work / "parts"
@@ -126,6 +134,10 @@ def main(argv: list[str] | None = None) -> int:
     results: dict = {"meta": {"scale": scale.name, "started": datetime.now(UTC).strftime("%Y-%m-%d %H:%M"),
                               "git": _git(), "machine": _machine(), "notes": list(scale.notes)},
                      "sections": {}, "errors": {}, "facts": [], "not_measured": []}
+    if args.repeats:
+        results["meta"]["notes"].append(f"repeats set to {args.repeats} for this run (--repeats)")
+    if only != set(SECTIONS):
+        results["meta"]["notes"].append("partial run: only " + ", ".join(s for s in SECTIONS if s in only))
 
     def attempt(name: str, fn) -> None:
         try:
@@ -247,9 +259,10 @@ def main(argv: list[str] | None = None) -> int:
     results["meta"]["finished"] = datetime.now(UTC).strftime("%Y-%m-%d %H:%M")
     results["meta"]["machine"]["load average at end"] = " ".join(f"{x:.1f}" for x in os.getloadavg())
     summarise_results(results, scale)
-    (BENCH_DIR / "results.json").write_text(json.dumps(results, indent=1, default=str) + "\n")
-    (BENCH_DIR / "RESULTS.md").write_text(report.render(results, findings.read_text() if findings.exists() else ""))
-    log(f"wrote {BENCH_DIR / 'RESULTS.md'} and results.json")
+    out_dir.mkdir(parents=True, exist_ok=True)
+    (out_dir / "results.json").write_text(json.dumps(results, indent=1, default=str) + "\n")
+    (out_dir / "RESULTS.md").write_text(report.render(results, findings.read_text() if findings.exists() else ""))
+    log(f"wrote {out_dir / 'RESULTS.md'} and results.json")
     return 0
 
 
