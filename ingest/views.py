@@ -20,7 +20,6 @@ from django.urls import path, reverse
 from django.views.decorators.http import require_POST
 
 from analytics.views.common import (
-    can_triage,
     int_param,
     paginate,
     project_page,
@@ -29,6 +28,7 @@ from analytics.views.common import (
     sort_param,
     table_download,
 )
+from ingest.api.auth import can_import
 from ingest.models import Build, DefectColumnMap, ImportJob, Outcome, TestResult
 from ingest.parsers.defects import DEFECT_FIELDS, REQUIRED_FIELDS, ColumnMap, ColumnMapError
 from ingest.services.defects import column_map_get, column_map_save, defect_export_preview, defects_job_create
@@ -50,10 +50,6 @@ DATE_FORMATS = [("", "work it out per column"), ("iso", "ISO 8601"), ("dayfirst"
                 ("epoch_ms", "Unix milliseconds")]
 BUILD_SORTS = {"started": "started_at", "build": "external_id", "branch": "branch", "commit": "commit"}
 RESULT_SORTS = {"test": "test_case__name", "outcome": "outcome", "duration": "duration", "attempt": "attempt"}
-
-
-def can_import(user) -> bool:
-    return bool(user.is_authenticated and (user.is_staff or can_triage(user)))
 
 
 def _import_required(request: HttpRequest) -> None:

@@ -6,7 +6,13 @@ from django.utils import timezone
 from drf_spectacular.extensions import OpenApiAuthenticationExtension
 from rest_framework import authentication, exceptions, permissions
 
+from analytics.services.triage import triage_allowed
 from ingest.models import ApiToken
+
+ERR_FOREIGN_TOKEN = "This token does not belong to the project in the URL."
+ERR_CANNOT_IMPORT = (
+    "Importing needs a token of this project, a staff account or the triage permission (group 'triagers')."
+)
 
 
 class TokenPrincipal:
@@ -52,7 +58,7 @@ class ProjectTokenAuthentication(authentication.BaseAuthentication):
 class ProjectAccess(permissions.BasePermission):
     """A token may act only on its own project; signed-in people may act on any project."""
 
-    message = "This token does not belong to the project in the URL."
+    message = ERR_FOREIGN_TOKEN
 
     def has_permission(self, request, view) -> bool:
         user = request.user
@@ -61,6 +67,29 @@ class ProjectAccess(permissions.BasePermission):
         if isinstance(user, TokenPrincipal):
             return user.token.project.slug == view.kwargs.get("slug")
         return True
+
+
+def can_import(user) -> bool:
+    """A person who may import or retry imports: staff, or holding ``analytics.triage`` (never a token)."""
+    if isinstance(user, TokenPrincipal) or not (user and user.is_authenticated):
+        return False
+    return bool(user.is_staff or triage_allowed(user))
+
+
+class CanImport(ProjectAccess):
+    """Imports change the data everyone's figures come from: a token of the project, staff or a triager.
+
+    A signed-in viewer (no group, not staff) may read through the API but not import, as on the web pages.
+    """
+
+    def has_permission(self, request, view) -> bool:
+        self.message = ERR_FOREIGN_TOKEN
+        if not super().has_permission(request, view):
+            return False
+        if isinstance(request.user, TokenPrincipal):
+            return True
+        self.message = ERR_CANNOT_IMPORT
+        return can_import(request.user)
 
 
 class ProjectTokenScheme(OpenApiAuthenticationExtension):

@@ -2,8 +2,9 @@
 
 Who may do what (same token auth as the results upload, ``ingest/api/auth.py``):
 
-* ``POST /api/v1/projects/<slug>/defects/``: a token of the project, or any signed-in person.
-* ``GET  /api/v1/projects/<slug>/imports/<id>/rejected.csv``: same.
+* ``POST /api/v1/projects/<slug>/defects/``: a token of the project, a staff person or a triager
+  (``analytics.triage``), as on the dashboard's upload page; other signed-in people get 403.
+* ``GET  /api/v1/projects/<slug>/imports/<id>/rejected.csv``: a token of the project, or any signed-in person.
 * ``GET  /api/v1/projects/<slug>/column-maps/<name>/``: same.
 * ``PUT  /api/v1/projects/<slug>/column-maps/<name>/``: a token of the project (so a pipeline can keep its
   map under version control and push it) or a staff person. Other signed-in people get 403: a map decides
@@ -25,7 +26,7 @@ from rest_framework.parsers import JSONParser, MultiPartParser
 from rest_framework.response import Response
 from rest_framework.views import APIView
 
-from ingest.api.auth import ProjectAccess, TokenPrincipal
+from ingest.api.auth import ERR_FOREIGN_TOKEN, CanImport, ProjectAccess, TokenPrincipal
 from ingest.api.views import ERR_TOO_LARGE, ImportJobOutput, PayloadTooLarge, upload_size_check
 from ingest.models import DefectColumnMap, ImportJob, Project
 from ingest.parsers.defects import ColumnMap, ColumnMapError
@@ -40,6 +41,7 @@ from ingest.tasks import job_enqueue
 ERR_ONE_MAP = "give exactly one of 'mapping' (the name of a saved column map) or 'column_map' (its JSON)"
 ERR_MAP_JSON = "column_map: not valid JSON ({detail})"
 ERR_NAME_MISMATCH = "the map's name {body!r} differs from the name in the URL {url!r}"
+ERR_MAP_WRITE = "Saving a column map needs a token of this project or a staff account."
 ERR_NO_SUCH_MAP = "no saved column map named {name!r} in project {slug!r}"
 
 
@@ -57,7 +59,7 @@ class DefectUploadInput(serializers.Serializer):
 class DefectUploadView(APIView):
     """Store a defect export and queue its import; the job URL shows counts, rejected rows and errors."""
 
-    permission_classes = [ProjectAccess]
+    permission_classes = [CanImport]
     parser_classes = [MultiPartParser]
 
     @extend_schema(request={"multipart/form-data": DefectUploadInput}, responses={202: ImportJobOutput})
@@ -119,13 +121,15 @@ class RejectedRowsCsvView(APIView):
 class ColumnMapWrite(ProjectAccess):
     """Reads as ProjectAccess; a PUT needs a token of the project or a staff person."""
 
-    message = "Saving a column map needs a token of this project or a staff account."
+    message = ERR_FOREIGN_TOKEN
 
     def has_permission(self, request, view) -> bool:
+        self.message = ERR_FOREIGN_TOKEN
         if not super().has_permission(request, view):
             return False
         if request.method in ("GET", "HEAD", "OPTIONS"):
             return True
+        self.message = ERR_MAP_WRITE
         return isinstance(request.user, TokenPrincipal) or bool(getattr(request.user, "is_staff", False))
 
 

@@ -13,7 +13,7 @@ from rest_framework.parsers import MultiPartParser
 from rest_framework.response import Response
 from rest_framework.views import APIView
 
-from ingest.api.auth import ProjectAccess
+from ingest.api.auth import CanImport, ProjectAccess
 from ingest.models import ImportJob, Project
 from ingest.services.results import BuildMeta, ResultsImportError, results_job_create
 from ingest.tasks import job_enqueue
@@ -72,7 +72,9 @@ def job_progress(job: ImportJob) -> float:
 
 
 class ResultsUploadView(APIView):
-    permission_classes = [ProjectAccess]
+    """Store JUnit reports and queue their import: a token of the project, a staff person or a triager."""
+
+    permission_classes = [CanImport]
     parser_classes = [MultiPartParser]
 
     @extend_schema(request={"multipart/form-data": ResultsUploadInput}, responses={202: ImportJobOutput})
