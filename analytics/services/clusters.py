@@ -65,6 +65,10 @@ MATCH_MESSAGES = 5
 ERR_OTHER_PROJECT = "cluster #{a} and {what} #{b} belong to different projects"
 ERR_MERGE_SELF = "cannot merge cluster #{pk} into itself"
 ERR_MERGED_ALREADY = "cluster #{pk} was already merged into cluster #{into}"
+ERR_MERGE_CYCLE = "cannot merge cluster #{pk} into cluster #{into}: #{into} already leads into #{pk}"
+ERR_CONFIRM_MERGED = (
+    "cluster #{pk} was merged into cluster #{into}; confirm the defect on cluster #{into} instead"
+)
 ERR_SPLIT_EMPTY = "choose at least one signature to split off"
 ERR_SPLIT_FOREIGN = "signature(s) not in cluster #{pk}: {keys}"
 ERR_SPLIT_ALL = "cannot split off every signature of cluster #{pk}; at least one must stay"
@@ -302,7 +306,8 @@ def _defect_links_refresh(
         elif abs(link.score - score) > 1e-12:
             link.score = score
             changed.append(link)
-    ClusterDefectLink.objects.bulk_create(new, batch_size=1000)
+    # A link another transaction stored meanwhile (same cluster and defect) is kept as it is.
+    ClusterDefectLink.objects.bulk_create(new, batch_size=1000, ignore_conflicts=True)
     ClusterDefectLink.objects.bulk_update(changed, ["score"], batch_size=1000)
     return len(wanted)
 
@@ -314,6 +319,7 @@ def cluster_defect_links_refresh(*, project_id: int) -> int:
     of suggestions.
     """
     with transaction.atomic():
+        _project_lock(project_id)
         return _defect_links_refresh(project_id=project_id)
 
 
@@ -524,6 +530,20 @@ def _require_triager(user) -> None:
         raise PermissionDenied(ERR_NOT_TRIAGER)
 
 
+def _project_lock(project_id: int) -> None:
+    """Serialise changes to a project's clusters (refits, assignments, person actions, link refreshes).
+
+    Call inside ``transaction.atomic``; the row lock is held until the transaction ends (a no-op on SQLite,
+    where writers are serialised by the database lock).
+    """
+    Project.objects.select_for_update().filter(pk=project_id).first()
+
+
+def _cluster_locked(pk: int) -> FailureCluster:
+    """Re-load a cluster under a row lock: the caller's object may predate another person's merge."""
+    return FailureCluster.objects.select_for_update().get(pk=pk)
+
+
 def cluster_merge(*, cluster: FailureCluster, into: FailureCluster, user) -> FailureCluster:
     """Merge ``cluster`` into ``into``; every signature of both is pinned to ``into`` so refits keep it.
 
@@ -535,10 +555,17 @@ def cluster_merge(*, cluster: FailureCluster, into: FailureCluster, user) -> Fai
         raise ValidationError(ERR_OTHER_PROJECT.format(a=cluster.pk, what="cluster", b=into.pk))
     if cluster.pk == into.pk:
         raise ValidationError(ERR_MERGE_SELF.format(pk=cluster.pk))
-    for one in (cluster, into):
-        if one.merged_into_id is not None:
-            raise ValidationError(ERR_MERGED_ALREADY.format(pk=one.pk, into=one.merged_into_id))
     with transaction.atomic():
+        _project_lock(into.project_id)
+        # Checked on fresh rows under the lock: the objects passed in may predate a merge that committed
+        # meanwhile (two people merging A into B and B into A would otherwise hide both).
+        given = (cluster, into)
+        cluster, into = _cluster_locked(cluster.pk), _cluster_locked(into.pk)
+        for one in (cluster, into):
+            if one.merged_into_id is not None:
+                raise ValidationError(ERR_MERGED_ALREADY.format(pk=one.pk, into=one.merged_into_id))
+        if _live_cluster_ids(into.project_id).get(into.pk) == cluster.pk:
+            raise ValidationError(ERR_MERGE_CYCLE.format(pk=cluster.pk, into=into.pk))
         FailureSignature.objects.filter(cluster_id__in=[cluster.pk, into.pk]).update(
             cluster=into, pinned=True
         )
@@ -559,8 +586,8 @@ def cluster_merge(*, cluster: FailureCluster, into: FailureCluster, user) -> Fai
         _clusters_describe_again(project_id=into.project_id, cluster_ids=[into.pk])
         _clusterer_forget(into.project_id)
         log.info("cluster #%s merged into #%s by %s", cluster.pk, into.pk, user)
-    into.refresh_from_db()
-    cluster.refresh_from_db()
+    for obj in (*given, cluster, into):
+        obj.refresh_from_db()
     return into
 
 
@@ -574,13 +601,14 @@ def cluster_split(*, cluster: FailureCluster, signature_keys: Iterable[str], use
     moving = sorted({str(key) for key in signature_keys})
     if not moving:
         raise ValidationError(ERR_SPLIT_EMPTY)
-    members = set(FailureSignature.objects.filter(cluster=cluster).values_list("key", flat=True))
-    foreign = [key for key in moving if key not in members]
-    if foreign:
-        raise ValidationError(ERR_SPLIT_FOREIGN.format(pk=cluster.pk, keys=", ".join(foreign)))
-    if set(moving) >= members:
-        raise ValidationError(ERR_SPLIT_ALL.format(pk=cluster.pk))
     with transaction.atomic():
+        _project_lock(cluster.project_id)
+        members = set(FailureSignature.objects.filter(cluster=cluster).values_list("key", flat=True))
+        foreign = [key for key in moving if key not in members]
+        if foreign:
+            raise ValidationError(ERR_SPLIT_FOREIGN.format(pk=cluster.pk, keys=", ".join(foreign)))
+        if set(moving) >= members:
+            raise ValidationError(ERR_SPLIT_ALL.format(pk=cluster.pk))
         new = FailureCluster.objects.create(project_id=cluster.project_id, label="")
         FailureSignature.objects.filter(cluster=cluster, key__in=moving).update(cluster=new, pinned=True)
         FailureSignature.objects.filter(cluster=cluster).update(pinned=True)
@@ -600,6 +628,10 @@ def cluster_defect_link_confirm(*, cluster: FailureCluster, defect: Defect, user
     if cluster.project_id != defect.project_id:
         raise ValidationError(ERR_OTHER_PROJECT.format(a=cluster.pk, what="defect", b=defect.pk))
     with transaction.atomic():
+        _project_lock(cluster.project_id)
+        merged_into = _cluster_locked(cluster.pk).merged_into_id
+        if merged_into is not None:
+            raise ValidationError(ERR_CONFIRM_MERGED.format(pk=cluster.pk, into=merged_into))
         link = ClusterDefectLink.objects.filter(cluster=cluster, defect=defect).first()
         if link is None:
             text = _cluster_match_texts(project_id=cluster.project_id, cluster_ids=[cluster.pk]).get(

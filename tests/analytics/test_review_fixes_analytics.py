@@ -1,0 +1,134 @@
+"""Regression tests for the review findings on failure causes, triage, the overview pages, charts and the
+forecast API.
+
+Races are replayed sequentially with stale objects (SQLite has no row locks): what makes them safe is that
+the services re-check on fresh rows inside their transaction. Ground truth for the causes: failures raised by
+the real Python interpreter (tests/analytics/test_clusters_support.py).
+"""
+
+from __future__ import annotations
+
+import pytest
+from django.contrib.auth import get_user_model
+from django.contrib.auth.models import Permission
+from django.core.exceptions import ValidationError
+from django.utils import timezone
+
+from analytics.models import ClusterDefectLink, FailureCluster, FailureSignature
+from analytics.services.clusters import (
+    ERR_CONFIRM_MERGED,
+    ERR_MERGED_ALREADY,
+    cluster_defect_link_confirm,
+    cluster_defect_links_refresh,
+    cluster_merge,
+    clusters_refresh,
+)
+from ingest.models import Defect, TestResult
+from tests.analytics.test_clusters_support import history, make_project
+
+
+@pytest.fixture
+def triager(db):
+    user = get_user_model().objects.create_user("harbour-qa", password="x")
+    user.user_permissions.add(Permission.objects.get(codename="triage", content_type__app_label="analytics"))
+    return get_user_model().objects.get(pk=user.pk)
+
+
+def _clusters_by_cause(project, truth) -> dict[str, FailureCluster]:
+    by_key = dict(FailureSignature.objects.filter(project=project).values_list("key", "cluster_id"))
+    ids: dict[str, set[int]] = {}
+    for pk, key in TestResult.objects.filter(pk__in=truth).values_list("pk", "signature"):
+        ids.setdefault(truth[pk], set()).add(by_key[key])
+    assert all(len(v) == 1 for v in ids.values()), ids
+    return {cause: FailureCluster.objects.get(pk=next(iter(v))) for cause, v in ids.items()}
+
+
+@pytest.fixture
+def causes(db):
+    project = make_project()
+    _, truth = history(project, builds=2, causes=("berth-key", "zero-capacity", "vessel-none", "slot-number"))
+    clusters_refresh(project_id=project.pk)
+    return project, _clusters_by_cause(project, truth)
+
+
+def _visible_failures(project) -> int:
+    return sum(
+        FailureCluster.objects.filter(project=project, merged_into__isnull=True).values_list(
+            "failures", flat=True
+        )
+    )
+
+
+# ------------------------------------------------------------------------------------------ 1. crossed merges
+def test_crossed_merge_with_stale_clusters_is_refused_and_no_failure_is_hidden(causes, triager):
+    project, by_cause = causes
+    total = _visible_failures(project)
+    a, b = by_cause["berth-key"], by_cause["zero-capacity"]
+    stale_a, stale_b = FailureCluster.objects.get(pk=a.pk), FailureCluster.objects.get(pk=b.pk)
+    cluster_merge(cluster=a, into=b, user=triager)
+    # The second person still sees both clusters unmerged (objects loaded before the first merge).
+    assert stale_a.merged_into_id is None and stale_b.merged_into_id is None
+    with pytest.raises(ValidationError) as exc:
+        cluster_merge(cluster=stale_b, into=stale_a, user=triager)
+    assert exc.value.messages == [ERR_MERGED_ALREADY.format(pk=a.pk, into=b.pk)]
+    merged = dict(FailureCluster.objects.filter(project=project).values_list("pk", "merged_into_id"))
+    assert merged[a.pk] == b.pk and merged[b.pk] is None
+    assert _visible_failures(project) == total
+
+
+def test_merge_chains_cannot_form_a_cycle(causes, triager):
+    project, by_cause = causes
+    a, b, c = by_cause["berth-key"], by_cause["zero-capacity"], by_cause["vessel-none"]
+    stale_a = FailureCluster.objects.get(pk=a.pk)
+    cluster_merge(cluster=a, into=b, user=triager)
+    cluster_merge(cluster=b, into=c, user=triager)  # chain a -> b -> c
+    for cluster, into in ((c, stale_a), (c, b), (stale_a, c)):
+        with pytest.raises(ValidationError):
+            cluster_merge(cluster=cluster, into=into, user=triager)
+    rows = dict(FailureCluster.objects.filter(project=project).values_list("pk", "merged_into_id"))
+    for start in rows:  # following merged_into from any cluster ends at an unmerged one
+        seen, at = set(), start
+        while rows[at] is not None:
+            assert at not in seen, f"cycle through cluster #{at}"
+            seen.add(at)
+            at = rows[at]
+    assert rows[c.pk] is None
+
+
+def test_links_refresh_keeps_a_link_stored_meanwhile_instead_of_failing(causes, monkeypatch):
+    project, by_cause = causes
+    zero = by_cause["zero-capacity"]
+    defect = Defect.objects.create(
+        project=project,
+        key="BW-7001",
+        title="Occupancy report crashes: division by zero",
+        description="ZeroDivisionError: division by zero when a pontoon has no berths.",
+        created_at=timezone.now(),
+    )
+    manager = ClusterDefectLink.objects
+    real = manager.bulk_create
+
+    def concurrent_insert_then_bulk_create(objs, *args, **kwargs):
+        # Another refresh commits the same suggestion after this one read the existing links.
+        if any(o.cluster_id == zero.pk and o.defect_id == defect.pk for o in objs):
+            ClusterDefectLink.objects.create(cluster=zero, defect=defect, score=0.5)
+        return real(objs, *args, **kwargs)
+
+    monkeypatch.setattr(manager, "bulk_create", concurrent_insert_then_bulk_create)
+    assert cluster_defect_links_refresh(project_id=project.pk) >= 1
+    assert ClusterDefectLink.objects.filter(cluster=zero, defect=defect).count() == 1
+
+
+# ------------------------------------------------------------------------------------------ 2. confirm on merged
+def test_confirming_a_defect_on_a_merged_cluster_is_refused(causes, triager):
+    project, by_cause = causes
+    a, b = by_cause["vessel-none"], by_cause["slot-number"]
+    stale_a = FailureCluster.objects.get(pk=a.pk)
+    defect = Defect.objects.create(
+        project=project, key="BW-7002", title="Dock sensors offline", created_at=timezone.now()
+    )
+    cluster_merge(cluster=a, into=b, user=triager)
+    with pytest.raises(ValidationError) as exc:
+        cluster_defect_link_confirm(cluster=stale_a, defect=defect, user=triager)
+    assert exc.value.messages == [ERR_CONFIRM_MERGED.format(pk=a.pk, into=b.pk)]
+    assert not ClusterDefectLink.objects.filter(defect=defect).exists()
