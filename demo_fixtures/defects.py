@@ -23,16 +23,18 @@ from datetime import UTC, date, datetime, timedelta
 
 import numpy as np
 
-from demo_fixtures.scenario import COMPONENT_INDEX, COMPONENTS, Cause, ScenarioParams
-from demo_fixtures.texts import (
-    CAUSES,
-    DEFECT_HEADLINES,
-    DEFECT_NARRATIVES,
-    DEFECT_TAGS,
-    NARRATIVE_STEPS,
-    NARRATIVE_THINGS,
-    PEOPLE,
+from demo_fixtures.defect_texts import (
+    CAUSE_REPORTS,
+    DEVICES,
+    SKIPPERS,
+    VESSELS,
+    Problem,
+    ProblemDrawer,
+    report_text,
+    reworded,
 )
+from demo_fixtures.scenario import COMPONENT_INDEX, COMPONENTS, Cause, ScenarioParams
+from demo_fixtures.texts import CAUSES, DEFECT_TAGS, PEOPLE
 
 COLUMNS = {
     "key": "Ticket No",
@@ -103,7 +105,11 @@ class Defect:
     created: datetime
     component: int
     surge: bool
-    headline_index: int = 0
+    problem: Problem | None = None
+    vessel: str = ""
+    skipper: str = ""
+    device: str = ""
+    wording: tuple[int, int, int] = (0, 0, 0)
     fill: dict[str, str] = field(default_factory=dict)
     headline: str = ""
     narrative: str = ""
@@ -131,6 +137,21 @@ class DefectExport:
     count: int
 
 
+# Sizes of the earlier text model's tables. Its draws are still made (and ignored), so that for a given seed
+# every column but the texts stays as it was; the texts come from a stream of their own.
+_OLD_HEADLINES = {
+    "Booking API": 6,
+    "Payments": 5,
+    "Berth Sensors": 4,
+    "Mobile App": 5,
+    "Notifications": 4,
+    "Harbour-Master Reports": 5,
+}
+_OLD_NARRATIVES = 4
+_OLD_STEPS = 7
+_OLD_THINGS = 7
+
+
 def _truncated_exponential(rng: np.random.Generator, b: float, horizon: float, size: int) -> np.ndarray:
     u = rng.random(size)
     return -np.log1p(-u * (1.0 - math.exp(-b * horizon))) / b
@@ -142,8 +163,8 @@ def _fill(rnd: random.Random) -> dict[str, str]:
         "n": str(rnd.randint(2, 14)),
         "amount": f"EUR {rnd.randint(20, 900)}.{rnd.randint(0, 99):02d}",
         "node": f"sensor-{rnd.choice('ABCDEFGH')}{rnd.randint(1, 48):02d}",
-        "step": rnd.choice(NARRATIVE_STEPS),
-        "thing": rnd.choice(NARRATIVE_THINGS),
+        "step": str(rnd.randrange(_OLD_STEPS)),  # draws of the earlier text model, see _OLD_HEADLINES
+        "thing": str(rnd.randrange(_OLD_THINGS)),
         "p": rnd.choice("ABCDEFGH"),
         "k": str(rnd.randint(1, 9)),
         "booking": f"BK-2026-{rnd.randint(1, 99999):05d}",
@@ -169,6 +190,8 @@ def build_defects(
     releases, big = releases_for(params)
     t_release = (releases[big].day - params.start_date).days / 7.0
     n = params.n_defects
+    text_rnd = random.Random(f"berthwise-defect-texts/{params.seed}")
+    problems = ProblemDrawer(text_rnd)
 
     base_b = [round(rnd.uniform(0.03, 0.12), 4) for _ in COMPONENTS]
     surge_b = [round(rnd.uniform(0.25, 0.6), 4) for _ in COMPONENTS]
@@ -205,13 +228,24 @@ def build_defects(
     for i, d in enumerate(defects):
         comp = COMPONENTS[d.component]
         d.key = f"BW-{1001 + i}"
-        d.headline_index = rnd.randrange(len(DEFECT_HEADLINES[comp.name]))
+        rnd.randrange(_OLD_HEADLINES[comp.name])
         d.fill = _fill(rnd)
-        d.headline = DEFECT_HEADLINES[comp.name][d.headline_index][0].format_map(d.fill)
         rel = [r for r in releases if datetime.combine(r.day, datetime.min.time(), tzinfo=UTC) <= d.created]
         d.found_in = rel[-1].version if rel else "6.9.0"
-        d.narrative = DEFECT_NARRATIVES[rnd.randrange(len(DEFECT_NARRATIVES))].format_map(
-            {**d.fill, "version": d.found_in}
+        rnd.randrange(_OLD_NARRATIVES)
+        d.problem = problems.draw(comp.name)
+        if text_rnd.random() < 0.8:  # most reports name the customer's boat and skipper
+            d.vessel, d.skipper = text_rnd.choice(VESSELS), text_rnd.choice(SKIPPERS)
+        d.device = text_rnd.choice(DEVICES)
+        d.wording = (text_rnd.randrange(2), text_rnd.randrange(3), text_rnd.randrange(2))
+        d.headline, d.narrative = report_text(
+            d.problem,
+            text_rnd,
+            vessel=d.vessel,
+            skipper=d.skipper,
+            device=d.device,
+            version=d.found_in,
+            wording=d.wording,
         )
         roll = rnd.random()
         if roll < 0.12:
@@ -227,7 +261,7 @@ def build_defects(
         d.reporter = rnd.choice(PEOPLE)
         d.tags = sorted(rnd.sample(DEFECT_TAGS, rnd.choice((0, 0, 1, 1, 2))))
 
-    # duplicates: a later report of the same problem, reworded
+    # duplicates: a later report of the same problem by someone else, reworded, often about the same vessel
     n_dup = max(3, round(n * 0.015))
     used: set[int] = set()
     duplicates: list[dict[str, str]] = []
@@ -248,14 +282,23 @@ def build_defects(
         j = cands[rnd.randrange(len(cands))]
         dup = defects[j]
         used.update((i, j))
-        dup.headline_index, dup.fill = orig.headline_index, dict(orig.fill)
-        dup.headline = DEFECT_HEADLINES[COMPONENTS[dup.component].name][dup.headline_index][1].format_map(
-            dup.fill
+        dup.problem, dup.fill = orig.problem, dict(orig.fill)
+        if text_rnd.random() < 0.85:  # mostly the same customer complaining again
+            dup.vessel, dup.skipper, dup.device = orig.vessel, orig.skipper, orig.device
+        assert dup.problem is not None
+        dup.wording = reworded(orig.wording, text_rnd)
+        dup.headline, dup.narrative = report_text(
+            dup.problem,
+            text_rnd,
+            vessel=dup.vessel,
+            skipper=dup.skipper,
+            device=dup.device,
+            version=dup.found_in,
+            wording=dup.wording,
+            duplicate=True,
         )
-        dup.narrative = (
-            f"Looks like what happens when you {orig.fill['step'].lower()}: the {orig.fill['thing']} is off "
-            "again. Not sure if this is known already."
-        )
+        if dup.reporter == orig.reporter:
+            dup.reporter = text_rnd.choice([p for p in PEOPLE if p != orig.reporter])
         if rnd.random() < 0.6:
             dup.status = "Duplicate"
             dup.resolved = min(
@@ -266,6 +309,7 @@ def build_defects(
 
     # reports whose text matches a failure cause seen in CI
     matches: list[dict[str, str]] = []
+    reports_of: dict[str, int] = {}
     for cause in causes:
         spec = CAUSES[cause.spec_index]
         if rnd.random() > 0.75:
@@ -282,8 +326,13 @@ def build_defects(
         for i in sorted(rnd.sample(cands, min(len(cands), rnd.randint(1, 3)))):
             d = defects[i]
             used.add(i)
-            d.headline = spec.defect_headline
-            d.narrative = spec.defect_narrative.format_map(d.fill)
+            # the first report uses the cause's own words; further ones describe other consequences
+            nth = reports_of.get(spec.id, 0)
+            reports_of[spec.id] = nth + 1
+            variants = ((spec.defect_headline, spec.defect_narrative), *CAUSE_REPORTS[spec.id])
+            headline, narrative = variants[nth % len(variants)]
+            d.headline = headline
+            d.narrative = narrative.format_map(d.fill)
             d.kind = "Bug"
             matches.append({"defect": d.key, "cause": spec.id})
 
