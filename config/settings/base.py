@@ -12,6 +12,7 @@ from django.core.exceptions import ImproperlyConfigured
 
 BASE_DIR = Path(__file__).resolve().parent.parent.parent
 VAR_DIR = BASE_DIR / "var"
+VAR_DIR.mkdir(exist_ok=True)  # git-ignored: the default SQLite database, uploads and static files live here
 
 env = environ.Env()
 environ.Env.read_env(BASE_DIR / ".env", overwrite=False)
