@@ -20,6 +20,7 @@ from ingest.models import Outcome, TestCase, TestResult
 
 ERR_UNKNOWN_STATE = "unknown triage state; use one of: " + ", ".join(TriageState.values)
 ERR_GREEN_RUNS = "green_runs must be a whole number of at least 1"
+ERR_STATE_CHANGED = "the test is {actual}, not {expected} (changed meanwhile?); nothing was changed"
 ERR_NOT_ALLOWED = "only signed-in people with the triage permission (group 'triagers') may change triage states"
 TRIAGE_PERMISSION = "analytics.triage"
 QUARANTINE_WARNING = (
@@ -35,6 +36,10 @@ STATE_LABELS: dict[str, int] = {
 }
 
 
+class TriageStateChanged(ValueError):
+    """``triage_set(only_from=...)`` found the test in another state (someone changed it meanwhile)."""
+
+
 def triage_allowed(user) -> bool:
     """True for a signed-in person (not an API token) holding ``analytics.triage`` (or a superuser)."""
     has_perm = getattr(user, "has_perm", None)
@@ -42,7 +47,9 @@ def triage_allowed(user) -> bool:
                 and has_perm(TRIAGE_PERMISSION))
 
 
-def triage_set(*, test_case: TestCase, state: str, note: str = "", user=None) -> TriageEvent:
+def triage_set(
+    *, test_case: TestCase, state: str, note: str = "", user=None, only_from: str | None = None
+) -> TriageEvent:
     """Move ``test_case`` to triage ``state`` and record the change in the audit log.
 
     Parameters
@@ -55,6 +62,10 @@ def triage_set(*, test_case: TestCase, state: str, note: str = "", user=None) ->
     user : User or None
         The person deciding; ``None`` only for automatic changes made by Barometer itself. Anyone else
         (an API token, a person without ``analytics.triage``) raises ``PermissionDenied(ERR_NOT_ALLOWED)``.
+    only_from : str, optional
+        Change only a test that is in this state now (e.g. release only from quarantine); checked on the
+        locked row, so a change someone committed meanwhile is seen. Otherwise raises
+        ``TriageStateChanged(ERR_STATE_CHANGED)`` and writes nothing.
 
     Returns
     -------
@@ -75,6 +86,8 @@ def triage_set(*, test_case: TestCase, state: str, note: str = "", user=None) ->
             test_case=test_case, defaults={"project_id": test_case.project_id}
         )
         previous = triage.state
+        if only_from is not None and previous != only_from:
+            raise TriageStateChanged(ERR_STATE_CHANGED.format(actual=previous, expected=only_from))
         triage.state = state
         triage.note = note
         triage.updated_by = user
@@ -108,9 +121,40 @@ def triage_green_runs_refresh(*, project_id: int, test_ids: Iterable[int] | None
     a build with a failed or errored attempt sets it back to zero; builds where the test was only skipped
     say nothing and are left out. Returns how many triage rows changed.
     """
-    since = _quarantined_since(project_id=project_id, test_ids=test_ids)
-    if not since:
-        return 0
+    with transaction.atomic():
+        # Lock the quarantined rows first: a triage change committing between the count and the write
+        # would otherwise get a stale count written over its reset.
+        locked = TestTriage.objects.select_for_update().filter(
+            project_id=project_id, state=TriageState.QUARANTINED
+        )
+        if test_ids is not None:
+            locked = locked.filter(test_case_id__in=list(test_ids))
+        current = {
+            pk: (test_id, at) for pk, test_id, at in locked.values_list("pk", "test_case_id", "updated_at")
+        }
+        if not current:
+            return 0
+        since = _quarantined_since(project_id=project_id, test_ids=[t for t, _ in current.values()])
+        if not since:
+            return 0
+        green = _green_runs(since)
+        stored = TestTriage.objects.filter(pk__in=list(current)).values_list(
+            "pk", "green_runs_since_quarantine"
+        )
+        changed = 0
+        for pk, count in stored:
+            test_id, seen_at = current[pk]
+            if test_id in green and count != green[test_id]:
+                # Only a row still quarantined and untouched since it was read: a triage change meanwhile
+                # (release, re-quarantine) reset the count, and a stale count must not overwrite that.
+                changed += TestTriage.objects.filter(
+                    pk=pk, state=TriageState.QUARANTINED, updated_at=seen_at
+                ).update(green_runs_since_quarantine=green[test_id])
+        return changed
+
+
+def _green_runs(since: dict[int, object]) -> dict[int, int]:
+    """test_id -> green builds at the end of its history since ``since[test_id]`` (see the refresh)."""
     rows = (
         TestResult.objects.filter(test_case_id__in=list(since), build__started_at__gte=min(since.values()))
         .exclude(outcome=Outcome.SKIPPED)
@@ -125,12 +169,7 @@ def triage_green_runs_refresh(*, project_id: int, test_ids: Iterable[int] | None
     green = dict.fromkeys(since, 0)
     for (test_id, _build), passed in builds.items():
         green[test_id] = green[test_id] + 1 if passed else 0
-    triages = list(TestTriage.objects.filter(test_case_id__in=list(green)))
-    changed = [t for t in triages if t.green_runs_since_quarantine != green[t.test_case_id]]
-    for t in changed:
-        t.green_runs_since_quarantine = green[t.test_case_id]
-    TestTriage.objects.bulk_update(changed, ["green_runs_since_quarantine"], batch_size=1000)
-    return len(changed)
+    return green
 
 
 def quarantine_release_candidates(*, project_id: int, green_runs: int | None = None) -> list[TestCase]:

@@ -14,7 +14,7 @@ from django.views.decorators.http import require_GET, require_POST
 from analytics import selectors_pages as sel
 from analytics.charts.flaky import duration_figure
 from analytics.models import TriageState
-from analytics.services.triage import quarantine_release_candidates, triage_set
+from analytics.services.triage import TriageStateChanged, quarantine_release_candidates, triage_set
 from analytics.views.common import (
     figure_div,
     float_param,
@@ -212,11 +212,14 @@ def flaky_triage(request: HttpRequest, test_id: int) -> HttpResponse:
     if len(note) > NOTE_MAX:
         messages.error(request, ERR_NOTE_TOO_LONG)
         return redirect(detail)
-    if action == "release" and sel.triage_state_of(test) != TriageState.QUARANTINED:
+    state, label = TRIAGE_ACTIONS[action]
+    # "release" is checked on the locked triage row, so a release someone committed meanwhile is seen.
+    only_from = TriageState.QUARANTINED if action == "release" else None
+    try:
+        event = triage_set(test_case=test, state=state, note=note, user=request.user, only_from=only_from)
+    except TriageStateChanged:
         messages.error(request, ERR_RELEASE_NOT_QUARANTINED)
         return redirect(detail)
-    state, label = TRIAGE_ACTIONS[action]
-    event = triage_set(test_case=test, state=state, note=note, user=request.user)
     messages.success(request, f"{label}: the test is now “{TriageState(event.to_state).label}”.")
     return redirect(detail)
 

@@ -8,13 +8,25 @@ the real Python interpreter (tests/analytics/test_clusters_support.py).
 
 from __future__ import annotations
 
+from datetime import timedelta
+
 import pytest
 from django.contrib.auth import get_user_model
 from django.contrib.auth.models import Permission
 from django.core.exceptions import ValidationError
+from django.test import Client
+from django.urls import reverse
 from django.utils import timezone
 
-from analytics.models import ClusterDefectLink, FailureCluster, FailureSignature
+from analytics.models import (
+    ClusterDefectLink,
+    FailureCluster,
+    FailureSignature,
+    TestTriage,
+    TriageEvent,
+    TriageState,
+)
+from analytics.services import triage as triage_service
 from analytics.services.clusters import (
     ERR_CONFIRM_MERGED,
     ERR_MERGED_ALREADY,
@@ -23,7 +35,16 @@ from analytics.services.clusters import (
     cluster_merge,
     clusters_refresh,
 )
+from analytics.services.triage import (
+    ERR_STATE_CHANGED,
+    TriageStateChanged,
+    triage_green_runs_refresh,
+    triage_set,
+)
+from analytics.views import flaky as flaky_views
+from analytics.views.flaky import ERR_RELEASE_NOT_QUARANTINED
 from ingest.models import Defect, TestResult
+from tests.analytics import test_flaky_service_support as flaky_support
 from tests.analytics.test_clusters_support import history, make_project
 
 
@@ -132,3 +153,73 @@ def test_confirming_a_defect_on_a_merged_cluster_is_refused(causes, triager):
         cluster_defect_link_confirm(cluster=stale_a, defect=defect, user=triager)
     assert exc.value.messages == [ERR_CONFIRM_MERGED.format(pk=a.pk, into=b.pk)]
     assert not ClusterDefectLink.objects.filter(defect=defect).exists()
+
+
+# ------------------------------------------------------------------------------------------ 3. triage races
+@pytest.fixture
+def quarantined(db):
+    """A test quarantined before five green builds (ground truth: five green runs since the quarantine)."""
+    project = flaky_support.make_project("berthwise-triage")
+    start = timezone.now() - timedelta(days=2)
+    test = flaky_support.add_history(project, {"test_pontoon_gate": ["P"] * 5}, start=start)[
+        "test_pontoon_gate"
+    ]
+    triage_set(test_case=test, state=TriageState.QUARANTINED, note="noisy")
+    TriageEvent.objects.filter(test_case=test).update(at=start - timedelta(hours=1))
+    return project, test
+
+
+@pytest.mark.parametrize("meanwhile", ["release", "quarantine_again"])
+def test_green_run_refresh_does_not_write_a_stale_count_over_a_triage_change(
+    quarantined, monkeypatch, meanwhile
+):
+    project, test = quarantined
+    real = triage_service._quarantined_since
+
+    def since_then_triage_change(**kwargs):
+        out = real(**kwargs)
+        # A person's change commits after the refresh read the quarantine times (both reset the count).
+        triage_set(test_case=test, state=TriageState.CONFIRMED, note="fixed")
+        if meanwhile == "quarantine_again":
+            triage_set(test_case=test, state=TriageState.QUARANTINED, note="noisy again")
+        return out
+
+    monkeypatch.setattr(triage_service, "_quarantined_since", since_then_triage_change)
+    triage_green_runs_refresh(project_id=project.pk)
+    assert TestTriage.objects.get(test_case=test).green_runs_since_quarantine == 0
+
+
+def test_green_run_refresh_still_counts_without_a_concurrent_change(quarantined):
+    project, test = quarantined
+    assert triage_green_runs_refresh(project_id=project.pk) == 1
+    assert TestTriage.objects.get(test_case=test).green_runs_since_quarantine == 5
+
+
+def test_triage_set_only_from_refuses_a_test_in_another_state(quarantined):
+    _, test = quarantined
+    triage_set(test_case=test, state=TriageState.CONFIRMED, note="released")
+    events = TriageEvent.objects.filter(test_case=test).count()
+    with pytest.raises(TriageStateChanged) as exc:
+        triage_set(test_case=test, state=TriageState.CONFIRMED, only_from=TriageState.QUARANTINED)
+    assert str(exc.value) == ERR_STATE_CHANGED.format(actual="confirmed", expected="quarantined")
+    assert TriageEvent.objects.filter(test_case=test).count() == events
+
+
+def test_release_that_someone_else_made_meanwhile_is_refused_on_the_page(quarantined, monkeypatch):
+    project, test = quarantined
+    user = get_user_model().objects.create_user("harbour-lead", password="x")
+    user.user_permissions.add(Permission.objects.get(codename="triage", content_type__app_label="analytics"))
+    client = Client()
+    client.force_login(user)
+    real = flaky_views.triage_set
+
+    def released_meanwhile(**kwargs):
+        real(test_case=test, state=TriageState.CONFIRMED, note="released by a colleague")
+        return real(**kwargs)
+
+    monkeypatch.setattr(flaky_views, "triage_set", released_meanwhile)
+    url = reverse("flaky-triage", kwargs={"slug": project.slug, "test_id": test.pk})
+    response = client.post(url, {"action": "release", "note": "fixed"}, follow=True)
+    assert ERR_RELEASE_NOT_QUARANTINED in response.content.decode()
+    releases = TriageEvent.objects.filter(test_case=test, to_state=TriageState.CONFIRMED)
+    assert list(releases.values_list("note", flat=True)) == ["released by a colleague"]
