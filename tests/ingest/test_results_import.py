@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import io
 import subprocess
 import sys
 import textwrap
@@ -167,8 +168,12 @@ def test_manifest_backfill_and_rollup_match_recomputation(tmp_path):
         rows.append(f"b{i},r{i}.xml,c{i},main,2026-10-{i * 5 + 1:02d}T08:00:00Z,nightly")
     (tmp_path / "manifest.csv").write_text("\n".join(rows) + "\n")
     call_command("ingest_results", manifest=str(tmp_path / "manifest.csv"), project="p", no_progress=True)
-    call_command("ingest_results", manifest=str(tmp_path / "manifest.csv"), project="p", no_progress=True)
+    out = io.StringIO()
+    call_command("ingest_results", manifest=str(tmp_path / "manifest.csv"), project="p", no_progress=True,
+                 stdout=out)
     assert Build.objects.count() == 6 and TestResult.objects.count() == 12
+    # The rerun skips every report without leaving an empty job per build behind.
+    assert ImportJob.objects.count() == 6 and "already imported, skipped: 6" in out.getvalue()
     incremental = sorted(TestWeek.objects.values_list("test_case__name", "week", "runs", "failed", "duration_total"))
     rollup_rebuild(project=Project.objects.get(slug="p"))
     rebuilt = sorted(TestWeek.objects.values_list("test_case__name", "week", "runs", "failed", "duration_total"))

@@ -3,12 +3,13 @@
 from __future__ import annotations
 
 import csv
+import hashlib
 import json
 from pathlib import Path
 
 from django.core.management.base import BaseCommand, CommandError
 
-from ingest.models import Project
+from ingest.models import ImportedReport, Project
 from ingest.services.results import (
     BuildMeta,
     ImportCounts,
@@ -109,7 +110,12 @@ class Command(BaseCommand):
                 build=build_id, commit=str(first.get("commit") or ""), branch=str(first.get("branch") or ""),
                 ci_job=str(first.get("ci_job") or ""), started=str(first.get("started") or ""),
             )
-            counts = self._one_build(project, meta, [r["_path"] for r in build_rows], refresh=False)
+            paths = [r["_path"] for r in build_rows]
+            if self._already_imported(project, build_id, paths):
+                # A rerun of the backfill: count the reports as skipped without creating an empty job.
+                total.reports_already_imported += len(paths)
+                continue
+            counts = self._one_build(project, meta, paths, refresh=False)
             for key, value in counts.as_dict().items():
                 setattr(total, key, getattr(total, key) + value)
             total.warnings.extend(counts.warnings)
@@ -120,6 +126,25 @@ class Command(BaseCommand):
 
             task_enqueue(refresh_project, project.pk)
         return total
+
+    @staticmethod
+    def _already_imported(project: Project, build_id: str, paths: list[Path]) -> bool:
+        """True when every report file of this manifest build is already in that build (same sha256)."""
+        if not all(Path(p).suffix.lower() == ".xml" for p in paths):
+            return False  # directories and archives are expanded by the import itself
+        known = set(
+            ImportedReport.objects.filter(project=project, build__external_id=build_id).values_list("sha256", flat=True)
+        )
+        if not known:
+            return False
+        for path in paths:
+            digest = hashlib.sha256()
+            with open(path, "rb") as handle:
+                for chunk in iter(lambda: handle.read(1 << 20), b""):
+                    digest.update(chunk)
+            if digest.hexdigest() not in known:
+                return False
+        return True
 
     def _summary(self, c: ImportCounts) -> None:
         w = self.stdout.write
