@@ -2,7 +2,8 @@
 the defect upload (file → preview of the first rows → column mapping → import).
 
 Roles: every signed-in person sees these pages; retrying a job and uploading defects is for triagers and
-admins (``can_import``), because both change the data everyone's figures are computed from.
+admins (``can_import``), because both change the data everyone's figures are computed from. Triagers may save
+a mapping under a new name; overwriting a saved one is for admins, as in the API.
 """
 
 from __future__ import annotations
@@ -39,6 +40,8 @@ ERR_NOT_ALLOWED = "Only triagers and admins may retry imports or upload defects.
 ERR_NOT_RETRYABLE = "Only a failed import, or one that never reached a worker, can be retried (this one is {status})."
 ERR_NO_FILE = "Choose a defect export file (CSV or JSON) to upload."
 ERR_TOO_LARGE = "{name} is {size} bytes; the limit is {limit} bytes (BAROMETER_MAX_UPLOAD_BYTES)."
+ERR_MAP_EXISTS = ("A column map named “{name}” is already saved and only admins may change it. Choose another "
+                  "name, or untick “save it” to import with this mapping without saving it.")
 ERR_UPLOAD_GONE = "This upload is no longer in your session; upload the file again."
 MSG_RETRIED = "Import #{pk} was queued again."
 MSG_QUEUED = "The defect export was stored and its import #{pk} is queued."
@@ -149,12 +152,13 @@ def build_detail(request: HttpRequest, pk: int) -> HttpResponse:
     sort, order = sort_param(request, RESULT_SORTS, "test")
     results = results.order_by(order, "test_case__classname", "attempt", "id")
     fields = ["classname", "name", "component", "outcome", "attempt", "duration", "failure_type", "message"]
-    if request.GET.get("download"):
-        rows = results.values("outcome", "attempt", "duration", "failure_type", "message",
-                              classname=F("test_case__classname"), name=F("test_case__name"),
-                              component=F("test_case__component__name"))
-        return table_download(request, rows=rows, fields=fields,
+    rows = results.values("outcome", "attempt", "duration", "failure_type", "message",
+                          classname=F("test_case__classname"), name=F("test_case__name"),
+                          component=F("test_case__component__name"))
+    download = table_download(request, rows=rows, fields=fields,
                               filename=f"{request.project.slug}-build-{build.external_id}")
+    if download is not None:
+        return download
     page = paginate(request, results)
     jobs = list(ImportJob.objects.filter(build=build).order_by("created_at", "id"))
     context = {
@@ -346,8 +350,14 @@ def defects_map(request: HttpRequest, sha: str) -> HttpResponse:
             k: v for k, v in definition.items() if k != "name"}})
     except ColumnMapError as exc:
         map_error = map_error or str(exc)
-    if request.method == "POST" and request.POST.get("action") == "import" and column_map is not None:
-        if request.POST.get("save_map") and (request.POST.get("map_name") or "").strip():
+    save_name = (request.POST.get("map_name") or "").strip()[:200] if request.POST.get("save_map") else ""
+    if (save_name and not request.user.is_staff
+            and DefectColumnMap.objects.filter(project=request.project, name=save_name).exists()):
+        # As in the API (ColumnMapWrite): changing a saved map changes how every later export that names it
+        # is read, so only admins overwrite one. Nothing is imported, so the request is not half done.
+        map_error = map_error or ERR_MAP_EXISTS.format(name=save_name)
+    elif request.method == "POST" and request.POST.get("action") == "import" and column_map is not None:
+        if save_name:
             column_map_save(project=request.project, column_map=column_map)
         with open(path_on_disk, "rb") as stream:
             job = defects_job_create(project=request.project, name=upload["name"], stream=stream,

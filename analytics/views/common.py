@@ -8,6 +8,8 @@ the admin site. All logged-in users see all projects of this installation.
 from __future__ import annotations
 
 import json
+import math
+import re
 from collections.abc import Callable, Iterable, Mapping
 from functools import wraps
 from typing import Any
@@ -97,10 +99,12 @@ def int_param(request: HttpRequest, name: str, default: int, *, low: int, high: 
 
 
 def float_param(request: HttpRequest, name: str) -> float | None:
+    """A finite float from ``?name=``, else None (``nan`` and ``inf`` would silently empty or fill a filter)."""
     try:
-        return float(request.GET[name])
+        value = float(request.GET[name])
     except (KeyError, TypeError, ValueError):
         return None
+    return value if math.isfinite(value) else None
 
 
 def sort_param(request: HttpRequest, allowed: Mapping[str, str], default: str) -> tuple[str, str]:
@@ -158,7 +162,9 @@ def table_download(request: HttpRequest, *, rows: Iterable[Mapping[str, Any]], f
         response = StreamingHttpResponse(lines(), content_type="text/csv; charset=utf-8")
     else:
         return None
-    response["Content-Disposition"] = f'attachment; filename="{filename}.{kind}"'
+    # The name often holds uploaded text (a build id): keep only characters that are safe in a header.
+    safe = re.sub(r"[^A-Za-z0-9._-]+", "-", filename).strip("-") or "download"
+    response["Content-Disposition"] = f'attachment; filename="{safe}.{kind}"'
     return response
 
 

@@ -6,6 +6,7 @@ import hashlib
 import io
 import json
 import logging
+import unicodedata
 import zipfile
 from collections.abc import Iterable, Iterator
 from dataclasses import dataclass, field
@@ -35,6 +36,7 @@ ERR_ZIP = "{name}: not a readable .zip archive ({reason})"
 ERR_ZIP_BOMB = "{name}: archive member {member} is larger than allowed when unpacked ({size} bytes)"
 ERR_NO_BUILD = "the build id is missing: give --build (CLI) or the 'build' field (API)"
 ERR_BAD_STARTED = "'started' is not an ISO 8601 date-time: {value!r}"
+ERR_CONTROL_CHARS = "'{field}' contains a control character (line break, tab or similar): {value!r}"
 
 
 class ResultsImportError(Exception):
@@ -64,6 +66,12 @@ class BuildMeta:
     def validate(self) -> None:
         if not self.build:
             raise ResultsImportError(ERR_NO_BUILD)
+        # These values end up in page text, CSV rows and download file names; a line break in one would
+        # split a header or a CSV row, so they are refused rather than silently altered.
+        for name in ("build", "commit", "branch", "ci_job"):
+            value = getattr(self, name)
+            if any(unicodedata.category(ch) == "Cc" for ch in value):
+                raise ResultsImportError(ERR_CONTROL_CHARS.format(field=name, value=value))
         if self.started:
             self.started_at()
 
