@@ -61,6 +61,8 @@ class Command(BaseCommand):
         parser.add_argument("--manifest", type=Path, help="CSV or JSON list: build,file,commit,branch,started,ci_job")
         parser.add_argument("--project-name", default="", help="Display name when the project is created.")
         parser.add_argument("--no-progress", action="store_true")
+        parser.add_argument("--no-refresh", action="store_true",
+                            help="Do not queue the analytics refresh afterwards (run refresh_analytics yourself).")
 
     def handle(self, *args, **opts):
         project, _ = Project.objects.get_or_create(
@@ -69,7 +71,8 @@ class Command(BaseCommand):
         if opts["manifest"]:
             if opts["paths"]:
                 raise CommandError("give either report paths or --manifest, not both")
-            total = self._manifest(project, Path(opts["manifest"]), progress=not opts["no_progress"])
+            total = self._manifest(project, Path(opts["manifest"]), progress=not opts["no_progress"],
+                                   refresh=not opts["no_refresh"])
         else:
             if not opts["paths"]:
                 raise CommandError("give at least one report path (file, directory or .zip), or --manifest")
@@ -77,7 +80,7 @@ class Command(BaseCommand):
                 build=opts["build"] or "", commit=opts["commit"], branch=opts["branch"],
                 ci_job=opts["ci_job"], started=opts["started"],
             )
-            total = self._one_build(project, meta, opts["paths"])
+            total = self._one_build(project, meta, opts["paths"], refresh=not opts["no_refresh"])
         self._summary(total)
 
     def _one_build(self, project: Project, meta: BuildMeta, paths: list[Path], *, refresh: bool = True) -> ImportCounts:
@@ -95,7 +98,7 @@ class Command(BaseCommand):
         except ResultsImportError as exc:
             raise CommandError(str(exc)) from exc
 
-    def _manifest(self, project: Project, manifest: Path, *, progress: bool) -> ImportCounts:
+    def _manifest(self, project: Project, manifest: Path, *, progress: bool, refresh: bool) -> ImportCounts:
         from tqdm import tqdm
 
         rows = manifest_read(manifest)
@@ -119,7 +122,7 @@ class Command(BaseCommand):
             for key, value in counts.as_dict().items():
                 setattr(total, key, getattr(total, key) + value)
             total.warnings.extend(counts.warnings)
-        if total.tests:
+        if total.tests and refresh:
             # One analytics refresh for the whole backfill instead of one per build.
             from analytics.tasks import refresh_project
             from ingest.dispatch import task_enqueue

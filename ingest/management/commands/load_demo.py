@@ -24,9 +24,9 @@ DEMO_PASSWORD = "harbour-demo-2026"
 DEMO_MAP_NAME = "harbour-desk-export"
 # The three kinds of user (login, password, what they may do). Demo passwords only: change them.
 DEMO_LOGINS = (
-    (DEMO_USER, DEMO_PASSWORD, "admin (staff) and triager"),
-    ("triager", "harbour-triage-2026", "triager: may mark flaky tests, quarantine them, confirm clusters"),
-    ("viewer", "harbour-view-2026", "viewer: may read every page, change nothing"),
+    (DEMO_USER, DEMO_PASSWORD, "admin: everything, including the admin site (tokens, column maps, components)"),
+    ("triager", "harbour-triage-2026", "triager: triage flaky tests, merge/split failure causes, upload defects"),
+    ("viewer", "harbour-view-2026", "viewer: read every page and download tables, charts and numbers"),
 )
 
 
@@ -56,10 +56,10 @@ class Command(BaseCommand):
         project = self._project(layout)
         self.stdout.write("importing test results …")
         call_command("ingest_results", manifest=str(data / "manifest.csv"), project=project.slug,
-                     no_progress=not sys.stderr.isatty(), stdout=self.stdout)
+                     no_progress=not sys.stderr.isatty(), no_refresh=True, stdout=self.stdout)
         self.stdout.write("importing defects …")
         # The real path; the map is saved for the upload page. The full refresh below covers the defects,
-        # so the per-import analytics refresh is skipped (as for the results backfill above).
+        # so the per-import analytics refresh is skipped (as for the results backfill above: one refresh, once).
         call_command("import_defects", str(data / "defects.csv"), project=project.slug,
                      mapping_file=data / "defects.columnmap.json", save_mapping=DEMO_MAP_NAME,
                      no_refresh=True, stdout=self.stdout)
@@ -97,6 +97,6 @@ class Command(BaseCommand):
                 user.save()
                 if username in (DEMO_USER, "triager"):
                     user.groups.add(triagers)
-        self.stdout.write("\nDemo logins (demo passwords: change them with python manage.py changepassword USER):")
+        self.stdout.write("\nDemo logins (demo passwords: change them with DEBUG=1 .venv/bin/python manage.py changepassword USER):")
         for username, password, role in DEMO_LOGINS:
             self.stdout.write(f"  {username:<8} / {password:<20} {role}")
