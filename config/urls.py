@@ -5,6 +5,10 @@ from drf_spectacular.views import SpectacularAPIView
 
 from analytics.views import overview as overview_views
 
+admin.site.site_header = "Barometer administration"
+admin.site.site_title = "Barometer admin"
+admin.site.index_title = "Projects, tokens, column maps and components"
+
 urlpatterns = [
     # Signed-in people land on a project's "This week" page (the switcher sends ?project=<slug> here).
     path("", overview_views.home, name="home"),
