@@ -7,6 +7,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 from datetime import date, timedelta
 
+from django.contrib import messages
 from django.contrib.auth.decorators import login_required
 from django.http import Http404, HttpRequest, HttpResponse
 from django.shortcuts import redirect, render
@@ -56,6 +57,11 @@ ROW_TITLES = {
     "backlog": "Open defects at the end of the week",
     "flaky": "Tests the detector currently calls flaky",
 }
+#: Weeks the pages accept in ``?week=``: from the first Monday of 2000 to a year ahead (dates outside cannot
+#: hold builds, and the trend windows before them would run off the calendar).
+FIRST_WEEK = date(2000, 1, 3)
+WEEKS_AHEAD = timedelta(days=366)
+WEEK_OUT_OF_RANGE = "The week {week} is outside {first} to {last}; showing the default week instead."
 NO_PROJECT_TEXT = "No project exists yet. An admin can create one in the admin site, or run `manage.py load_demo`."
 
 
@@ -83,6 +89,13 @@ def _scope(request: HttpRequest) -> tuple[Scope | None, list[date], list[Compone
             week = date.fromisoformat(raw)
         except ValueError:
             week = None
+        if week is not None:
+            last = timezone.now().date() + WEEKS_AHEAD
+            if not FIRST_WEEK <= week <= last:
+                messages.warning(
+                    request, WEEK_OUT_OF_RANGE.format(week=week.isoformat(), first=FIRST_WEEK, last=last)
+                )
+                week = None
         if week is not None:
             week -= timedelta(days=week.weekday())
     if week is None:

@@ -43,9 +43,16 @@ from analytics.services.triage import (
 )
 from analytics.views import flaky as flaky_views
 from analytics.views.flaky import ERR_RELEASE_NOT_QUARANTINED
+from analytics.views.overview import FIRST_WEEK, WEEK_OUT_OF_RANGE
 from ingest.models import Defect, TestResult
 from tests.analytics import test_flaky_service_support as flaky_support
 from tests.analytics.test_clusters_support import history, make_project
+from tests.analytics.views.test_overview import (  # noqa: F401 (fixtures)
+    WEEK_B,
+    client_in_fixture,
+    viewer_fixture,
+    world_fixture,
+)
 
 
 @pytest.fixture
@@ -223,3 +230,26 @@ def test_release_that_someone_else_made_meanwhile_is_refused_on_the_page(quarant
     assert ERR_RELEASE_NOT_QUARANTINED in response.content.decode()
     releases = TriageEvent.objects.filter(test_case=test, to_state=TriageState.CONFIRMED)
     assert list(releases.values_list("note", flat=True)) == ["released by a colleague"]
+
+
+# ------------------------------------------------------------------------------------------ 4. ?week= out of range
+@pytest.mark.parametrize("raw", ["0001-01-01", "0001-01-07", "9999-12-31", "1999-12-31"])
+@pytest.mark.parametrize("page", ["overview", "rows"])
+def test_a_week_outside_the_calendar_range_falls_back_to_the_default_week(client_in, world, raw, page):
+    url = reverse("overview", kwargs={"slug": "berthwise"})
+    if page == "rows":
+        url = reverse("overview-rows", kwargs={"slug": "berthwise", "kind": "tests"})
+    response = client_in.get(url, {"week": raw})
+    assert response.status_code == 200
+    assert response.context["scope"].week == WEEK_B  # the default: last complete week with data
+    shown = [str(m) for m in response.context["messages"]]
+    last = timezone.now().date() + timedelta(days=366)
+    assert shown == [WEEK_OUT_OF_RANGE.format(week=raw, first=FIRST_WEEK, last=last)]
+
+
+def test_the_first_accepted_week_is_still_shown(client_in, world):
+    response = client_in.get(
+        reverse("overview", kwargs={"slug": "berthwise"}), {"week": FIRST_WEEK.isoformat()}
+    )
+    assert response.status_code == 200 and response.context["scope"].week == FIRST_WEEK
+    assert not list(response.context["messages"])
