@@ -113,6 +113,8 @@ def main(argv: list[str] | None = None) -> int:
     p.add_argument("--only", nargs="*", choices=SECTIONS, help="run only these sections")
     p.add_argument("--no-sqlite", action="store_true")
     p.add_argument("--repeats", type=int, help="override the scale's number of repeats (partial runs)")
+    p.add_argument("--merge", action="store_true",
+                   help="keep the other sections of the existing results.json and replace only those run now")
     p.add_argument("--render", action="store_true", help="only re-render RESULTS.md from results.json")
     p.add_argument("--out-dir", type=Path, default=BENCH_DIR,
                    help="where RESULTS.md and results.json go (default bench/; partial runs: elsewhere)")
@@ -136,7 +138,15 @@ def main(argv: list[str] | None = None) -> int:
                      "sections": {}, "errors": {}, "facts": [], "not_measured": []}
     if args.repeats:
         results["meta"]["notes"].append(f"repeats set to {args.repeats} for this run (--repeats)")
-    if only != set(SECTIONS):
+    if args.merge and (out_dir / "results.json").exists():
+        earlier = json.loads((out_dir / "results.json").read_text())
+        note = (f"sections re-run at {datetime.now(UTC).strftime('%H:%M')} and merged in (not part of the "
+                f"timed run above): " + ", ".join(sorted(only)))
+        earlier["meta"]["notes"] = [n for n in earlier["meta"]["notes"] if "merged in" not in n] + [note]
+        results = {**earlier, "errors": {k: v for k, v in earlier.get("errors", {}).items()
+                                         if not any(k.startswith(n) for n in only)},
+                   "facts": [], "not_measured": []}
+    elif only != set(SECTIONS):
         results["meta"]["notes"].append("partial run: only " + ", ".join(s for s in SECTIONS if s in only))
 
     def attempt(name: str, fn) -> None:

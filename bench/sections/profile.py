@@ -4,6 +4,7 @@ HTML reports under bench/data and the heaviest frames in the JSON."""
 from __future__ import annotations
 
 import os
+import time
 
 from bench.common import log, result_write, section_args
 from bench.config import DATA_DIR
@@ -20,7 +21,8 @@ def _heaviest(session, limit: int = 15) -> list[dict]:
         name = frame.function or "?"
         key = parent_key if name.startswith("[") and parent_key else (name, frame.file_path_short or "",
                                                                       frame.line_no or 0)
-        totals[key] = totals.get(key, 0.0) + frame.total_self_time
+        own = frame.time - sum(child.time for child in frame.children)
+        totals[key] = totals.get(key, 0.0) + max(own, 0.0)
         for child in frame.children:
             walk(child, key)
 
@@ -43,7 +45,7 @@ def main() -> None:
     project_id = project_ensure(history / "components.json")
     profiler = Profiler(interval=0.001)
     profiler.start()
-    done = ingest_rows(project_id, rows, build_prefix="profiled-")
+    done = ingest_rows(project_id, rows, build_prefix=f"profiled-{int(time.time())}-")  # new builds every run
     session = profiler.stop()
     folder = DATA_DIR / scale.name
     (folder / "profile_ingest.txt").write_text(profiler.output_text(unicode=False, color=False))
