@@ -33,7 +33,7 @@ from scipy import sparse
 from scipy.optimize import linear_sum_assignment
 from sklearn.base import BaseEstimator
 from sklearn.cluster import AgglomerativeClustering
-from sklearn.feature_extraction.text import TfidfVectorizer
+from sklearn.feature_extraction.text import ENGLISH_STOP_WORDS, TfidfVectorizer
 from sklearn.metrics import pairwise_distances_chunked
 from sklearn.pipeline import FeatureUnion, Pipeline
 from sklearn.preprocessing import Normalizer
@@ -77,7 +77,19 @@ _TOKEN_PATTERN = r"(?u)<\w+>|[A-Za-z_$][\w$]*"
 # File extensions and generated frame names say nothing about a cause in a label.
 _LABEL_NOISE = frozenset(
     {"py", "java", "kt", "scala", "js", "mjs", "cjs", "ts", "cs", "lambda", "anonymous", "via"}
-)
+) | ENGLISH_STOP_WORDS  # labels name the cause: "because", "but", "cannot" say nothing about it
+
+
+def _label_term_useless(term: str, skip: frozenset[str] | set[str]) -> bool:
+    """Terms that would not help a person recognise the cause in a label."""
+    return (
+        " " in term
+        or term.startswith("<")
+        or term in skip
+        # test classes and methods name where it failed, not why (the cause page lists them)
+        or term.endswith(("test", "tests"))
+        or term.startswith("test")
+    )
 
 
 def build_vectoriser(*, max_features: int | None = 20_000) -> Pipeline:
@@ -491,7 +503,7 @@ class FailureClusterer(BaseEstimator):
                 if weights[index] <= 0 or len(terms) == n_terms:
                     break
                 term = vocabulary[index]
-                if " " in term or term.startswith("<") or term in skip:
+                if _label_term_useless(term, skip):
                     continue
                 terms.append(term)
             label = exception + (": " + ", ".join(terms) if terms else "")

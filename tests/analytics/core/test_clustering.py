@@ -563,3 +563,20 @@ def test_bad_arguments_raise_value_error(params, frame, message):
     with pytest.raises(ValueError) as error:
         FailureClusterer(**params).fit(frame)
     assert str(error.value) == message
+
+
+def test_labels_skip_english_stop_words_and_test_names():
+    # scikit-learn's ENGLISH_STOP_WORDS list is the reference for filler words.
+    from sklearn.feature_extraction.text import ENGLISH_STOP_WORDS
+
+    texts = [
+        f"AssertionError: expected berth {n} to be free because the hold but it cannot expire "
+        f"at BerthAvailabilityTest.test_hold_expiry"
+        for n in range(6)
+    ]
+    frame = pd.DataFrame({"key": [f"k{i}" for i in range(6)], "text": texts})
+    label = FailureClusterer().fit(frame).describe(n_terms=5)["label"].iloc[0]
+    terms = label.split(": ", 1)[1].split(", ")
+    assert terms and not set(terms) & ENGLISH_STOP_WORDS, label
+    assert not any(t.endswith("test") or t.startswith("test") for t in terms), label
+    assert "berth" in terms or "hold" in terms or "expire" in terms, label
