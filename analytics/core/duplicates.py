@@ -181,15 +181,22 @@ def duplicate_candidates(
             sims[np.arange(n)[None, :] >= (rows + start)[:, None]] = -1.0
         else:
             sims[rows, rows + start] = -1.0  # a defect is not its own duplicate
-        top = np.argsort(-sims, axis=1, kind="stable")[:, :k]
-        for r, cols in zip(rows, top, strict=True):
-            for c in cols:
-                score = float(sims[r, c])
-                if score <= 0 or score < min_score:
-                    continue
-                a, b = int(by_filing[r + start]), int(by_filing[c])
-                pair = (a, b) if keys[a] < keys[b] else (b, a)
-                pairs[pair] = max(score, pairs.get(pair, score))
+        # the k-th largest score of each row bounds its top list; among the scores at least that high
+        # (more than k only on ties) the first k by score, then filing order, are kept
+        kth = -np.partition(-sims, k - 1, axis=1)[:, k - 1]
+        floor = np.maximum(kth, min_score)
+        r_idx, c_idx = np.nonzero((sims >= floor[:, None]) & (sims > 0))
+        if r_idx.size == 0:
+            continue
+        scores = sims[r_idx, c_idx]
+        ranked = np.lexsort((c_idx, -scores, r_idx))
+        r_idx, c_idx, scores = r_idx[ranked], c_idx[ranked], scores[ranked]
+        first = np.r_[True, r_idx[1:] != r_idx[:-1]]
+        rank = np.arange(len(r_idx)) - np.maximum.accumulate(np.where(first, np.arange(len(r_idx)), 0))
+        for r, c, score in zip(r_idx[rank < k], c_idx[rank < k], scores[rank < k], strict=True):
+            a, b = int(by_filing[r + start]), int(by_filing[c])
+            pair = (a, b) if keys[a] < keys[b] else (b, a)
+            pairs[pair] = max(float(score), pairs.get(pair, float(score)))
     if not pairs:
         return empty
     result = pd.DataFrame(

@@ -298,6 +298,14 @@ def test_small_and_empty_inputs():
     only_numbers = pd.DataFrame({"key": ["A", "B"], "title": ["404", "2026"], "description": ["1", "2"]})
     assert duplicate_candidates(only_numbers).empty
     assert list(duplicate_candidates(frame(DEFECTS[:0])).columns) == ["key_a", "key_b", "score"]
+    # no word in common anywhere: nothing to suggest, even at min_score 0
+    apart = pd.DataFrame(
+        {"key": ["A", "B", "C"], "title": ["red boat", "green tide", "blue sail"], "description": ""}
+    )
+    assert duplicate_candidates(apart, min_score=0.0).empty
+    assert duplicate_candidates(
+        apart.assign(created=pd.Timestamp("2026-01-01", tz="UTC")), min_score=0.0
+    ).empty
 
 
 @pytest.mark.parametrize(
