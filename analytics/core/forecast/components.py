@@ -229,7 +229,8 @@ def _bottom_up_total(
         "(the history's ratio of distinct defects to component memberships, since a defect filed under "
         f"several components counts once here); intervals are quantiles of {n_simulations} simulated sums of "
         "independent component counts, scaled the same way. Backtest scores are for models fitted to the "
-        f"total directly. {direct.note}"
+        "total directly, for comparison: none of them made this forecast. "
+        + direct.note.replace("Chosen by backtest: ", "The best of them by backtest had the ", 1)
     )
     return SeriesForecast(
         TOTAL, "bottom_up", note, direct.history, forecast, direct.backtest, direct.residual, direct.trend

@@ -119,6 +119,9 @@ def test_total_is_bottom_up(marina):
     component_sum = sum(out[n].forecast["expected"].to_numpy() for n in out if n != TOTAL)
     np.testing.assert_allclose(total.forecast["expected"].to_numpy(), ratio * component_sum, rtol=1e-12)
     assert "Bottom-up" in total.note
+    # The backtest table of the total scores models fitted to it directly: the note must not claim that one
+    # of them was chosen, since the bottom-up sum made the forecast.
+    assert "Chosen by backtest" not in total.note and "none of them made this forecast" in total.note
 
 
 def test_total_interval_matches_poisson_additivity():
