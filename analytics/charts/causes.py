@@ -42,7 +42,7 @@ def trend_frame(weekly_trend: Sequence[Sequence], *, end: date | None = None) ->
 
 def weekly_trend_figure(trend: pd.DataFrame, *, label: str = "") -> go.Figure:
     """Failures per week of one cause, as labelled bars (the count is written on each bar)."""
-    title = "Failures per week" + (f": {safe_text(label)[:80]}" if label else "")
+    title = "Failures per week" + (f": {safe_text(label[:80])}" if label else "")  # cut, then escape
     fig = go.Figure(go.Bar(
         x=trend["week"], y=trend["failures"], text=trend["failures"], textposition="outside",
         marker={"color": PALETTE[0]}, name="failures",

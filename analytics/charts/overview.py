@@ -84,7 +84,9 @@ def component_failures_chart(frame: pd.DataFrame) -> go.Figure:
             go.Bar(
                 x=pd.to_datetime(part["week"]), y=part["failures"], name=label,
                 marker=dict(color=PALETTE[i % len(PALETTE)], pattern=dict(shape=PATTERNS[i % len(PATTERNS)])),
-                hovertemplate=f"{label}<br>week of %{{x|%d %b %Y}}<br>%{{y:,}} failed runs<extra></extra>",
+                # The name goes in as data, never into the template: plotly would read "%{…}" in it.
+                customdata=[label] * len(part),
+                hovertemplate="%{customdata}<br>week of %{x|%d %b %Y}<br>%{y:,} failed runs<extra></extra>",
             )
         )
     fig.update_yaxes(title="failed runs (failures + errors)")

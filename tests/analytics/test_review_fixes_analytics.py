@@ -8,8 +8,11 @@ the real Python interpreter (tests/analytics/test_clusters_support.py).
 
 from __future__ import annotations
 
-from datetime import timedelta
+import html
+import re
+from datetime import date, timedelta
 
+import pandas as pd
 import pytest
 from django.contrib.auth import get_user_model
 from django.contrib.auth.models import Permission
@@ -18,6 +21,8 @@ from django.test import Client
 from django.urls import reverse
 from django.utils import timezone
 
+from analytics.charts.causes import trend_frame, weekly_trend_figure
+from analytics.charts.overview import component_failures_chart
 from analytics.models import (
     ClusterDefectLink,
     FailureCluster,
@@ -253,3 +258,36 @@ def test_the_first_accepted_week_is_still_shown(client_in, world):
     )
     assert response.status_code == 200 and response.context["scope"].week == FIRST_WEEK
     assert not list(response.context["messages"])
+
+
+# ------------------------------------------------------------------------------------------ 5./6. chart labels
+# plotly's hovertemplate reference: "%{variable}" in the template is replaced by the point's value, so an
+# uploaded name must not become part of the template (its text is passed as customdata instead).
+_PLACEHOLDER = re.compile(r"%\{[^}]*\}")
+
+
+def test_component_names_are_hover_data_never_part_of_the_hover_template():
+    name = "%{y} <b>x</b>"
+    weeks = [date(2026, 10, 5) + timedelta(weeks=i) for i in range(2)]
+    frame = pd.DataFrame(
+        {"week": weeks * 2, "component": [name] * 2 + ["Payments"] * 2, "failures": [3, 4, 1, 2]}
+    )
+    fig = component_failures_chart(frame)
+    templates = {t.hovertemplate for t in fig.data}
+    assert len(templates) == 1  # one template for every component: no name is in it
+    (template,) = templates
+    assert _PLACEHOLDER.findall(template) == ["%{customdata}", "%{x|%d %b %Y}", "%{y:,}"]
+    by_name = {t.name: t for t in fig.data}
+    trace = by_name[html.escape(name)]  # the trace name is escaped (stdlib html.escape is the reference)
+    assert list(trace.customdata) == [html.escape(name)] * 2
+    assert "<b>" not in fig.to_json()
+
+
+def test_a_long_cause_label_is_cut_before_escaping_so_no_entity_is_split():
+    label = "a" * 78 + "&" + "b" * 10  # the 79th character is "&"
+    fig = weekly_trend_figure(trend_frame([["2026-10-05", 3]]), label=label)
+    title = fig.layout.title.text
+    shown = title.split(": ", 1)[1]
+    # Round trip with the stdlib html module: a split entity ("&a") would not survive it.
+    assert html.escape(html.unescape(shown), quote=True) == shown
+    assert html.unescape(shown) == label[:80]
