@@ -9,6 +9,11 @@ defects created before that date (nothing stored).
 
 from __future__ import annotations
 
+from datetime import date
+from typing import Any
+
+from django.core.cache import cache
+from django.db.models import Count, Max
 from django.shortcuts import get_object_or_404
 from django.urls import path
 from drf_spectacular.utils import extend_schema
@@ -16,6 +21,8 @@ from rest_framework import serializers, status
 from rest_framework.response import Response
 from rest_framework.views import APIView
 
+from analytics.models import ForecastSnapshot
+from analytics.selectors_forecasts import defects_data_cutoff
 from analytics.services.forecasts import (
     DEFAULT_HORIZON_WEEKS,
     MAX_HORIZON_WEEKS,
@@ -30,6 +37,25 @@ RECONCILIATION = (
     "ratio of distinct defects to component memberships; its backtest rows score models fitted to the total "
     "directly, so none of them is marked chosen"
 )
+
+#: A computed report (``as_of`` or a longer horizon) takes seconds; it is kept this long, keyed on the data
+#: version, so a new defect import or forecast refresh is seen at once (as the dashboard's cache does).
+REPORT_CACHE_SECONDS = 6 * 3600
+
+
+def _report_cached(project: Project, *, horizon_weeks: int, as_of: date | None = None) -> dict[str, Any]:
+    """``forecast_report`` cached per project, horizon, ``as_of`` and data state (snapshots, defect imports)."""
+    stored = ForecastSnapshot.objects.filter(project=project).aggregate(at=Max("computed_at"), n=Count("id"))
+    cutoff = defects_data_cutoff(project_id=project.pk)
+    key = (
+        f"barometer:api-forecast-report:{project.pk}:{horizon_weeks}:{as_of and as_of.isoformat()}:"
+        f"{stored['n']}:{stored['at'] and stored['at'].isoformat()}:{cutoff and cutoff.isoformat()}"
+    )
+    report = cache.get(key)
+    if report is None:
+        report = forecast_report(project=project, horizon_weeks=horizon_weeks, as_of=as_of)
+        cache.set(key, report, REPORT_CACHE_SECONDS)
+    return report
 
 
 class ForecastQueryInput(serializers.Serializer):
@@ -86,7 +112,8 @@ class ForecastsView(APIView):
     every model's backtest scores (MASE, 80 % interval coverage; ``chosen`` marks the model used), the
     expected defects not yet found (or null) and the Laplace trend test. The stored forecast is returned
     when it reaches ``horizon_weeks``; a longer horizon or ``as_of`` is computed on the fly (seconds) and
-    not stored; the backtest then scores models over that horizon, so the chosen model can differ.
+    not stored (kept in the cache until the data change); the backtest then scores models over that
+    horizon, so the chosen model can differ.
     """
 
     permission_classes = [ProjectAccess]
@@ -97,7 +124,7 @@ class ForecastsView(APIView):
         query = ForecastQueryInput(data=request.query_params)
         query.is_valid(raise_exception=True)
         try:
-            report = forecast_report(project=project, **query.validated_data)
+            report = _report_cached(project, **query.validated_data)
         except ValueError as exc:
             return Response({"detail": str(exc)}, status=status.HTTP_400_BAD_REQUEST)
         series = [

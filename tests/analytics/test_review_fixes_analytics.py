@@ -16,11 +16,14 @@ import pandas as pd
 import pytest
 from django.contrib.auth import get_user_model
 from django.contrib.auth.models import Permission
+from django.core.cache import cache
 from django.core.exceptions import ValidationError
 from django.test import Client
 from django.urls import reverse
 from django.utils import timezone
+from rest_framework.test import APIClient
 
+from analytics.api import forecasts as forecasts_api
 from analytics.charts.causes import trend_frame, weekly_trend_figure
 from analytics.charts.overview import component_failures_chart
 from analytics.models import (
@@ -40,6 +43,7 @@ from analytics.services.clusters import (
     cluster_merge,
     clusters_refresh,
 )
+from analytics.services.forecasts import forecasts_refresh
 from analytics.services.triage import (
     ERR_STATE_CHANGED,
     TriageStateChanged,
@@ -49,9 +53,17 @@ from analytics.services.triage import (
 from analytics.views import flaky as flaky_views
 from analytics.views.flaky import ERR_RELEASE_NOT_QUARANTINED
 from analytics.views.overview import FIRST_WEEK, WEEK_OUT_OF_RANGE
-from ingest.models import Defect, TestResult
+from ingest.models import ApiToken, Defect, Project, TestResult
 from tests.analytics import test_flaky_service_support as flaky_support
 from tests.analytics.test_clusters_support import history, make_project
+from tests.analytics.test_forecasts import (  # noqa: F401 (_few_origins: autouse, keeps backtests small)
+    COMPONENTS,
+    CUTOFF,
+    HORIZON,
+    _few_origins,
+    quiet_rows,
+    store_defects,
+)
 from tests.analytics.views.test_overview import (  # noqa: F401 (fixtures)
     WEEK_B,
     client_in_fixture,
@@ -291,3 +303,41 @@ def test_a_long_cause_label_is_cut_before_escaping_so_no_entity_is_split():
     # Round trip with the stdlib html module: a split entity ("&a") would not survive it.
     assert html.escape(html.unescape(shown), quote=True) == shown
     assert html.unescape(shown) == label[:80]
+
+
+# ------------------------------------------------------------------------------------------ 7. forecast API cache
+@pytest.fixture
+def forecast_client(db):
+    project = Project.objects.create(slug="berthwise-forecasts", name="Berthwise forecasts")
+    store_defects(project, quiet_rows(), component_names=COMPONENTS)
+    forecasts_refresh(project_id=project.pk, horizon_weeks=HORIZON)
+    client = APIClient()
+    client.credentials(HTTP_AUTHORIZATION=f"Bearer {ApiToken.issue(project=project, name='planner')[1]}")
+    return project, client
+
+
+def test_an_identical_computed_forecast_request_is_served_from_the_cache(forecast_client, monkeypatch):
+    project, client = forecast_client
+    cache.clear()
+    calls = []
+    real = forecasts_api.forecast_report
+
+    def counting(**kwargs):
+        calls.append(kwargs)
+        return real(**kwargs)
+
+    monkeypatch.setattr(forecasts_api, "forecast_report", counting)
+    url = f"/api/v1/projects/{project.slug}/forecasts/"
+    as_of = (CUTOFF - timedelta(weeks=1)).date().isoformat()
+    first = client.get(url, {"as_of": as_of, "horizon_weeks": 2})
+    second = client.get(url, {"as_of": as_of, "horizon_weeks": 2})
+    assert first.status_code == second.status_code == 200
+    assert first.json() == second.json() and first.json()["source"] == "computed"
+    assert len(calls) == 1
+    # Another horizon, another as_of, or new data is computed again.
+    client.get(url, {"as_of": as_of, "horizon_weeks": 3})
+    client.get(url, {"horizon_weeks": HORIZON + 2})
+    assert len(calls) == 3
+    store_defects(project, [("SEN-9", CUTOFF, ("Berth Sensors",))], imported=CUTOFF + timedelta(hours=1))
+    client.get(url, {"as_of": as_of, "horizon_weeks": 2})
+    assert len(calls) == 4
