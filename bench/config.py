@@ -52,8 +52,8 @@ SCALES = {
         new_build_results=2_000,
         notes=(
             "quick scale: the history pair is about 10 thousand vs 0.15 million results (not 50 thousand vs "
-            "5 million), the ingest corpus is small PR builds, and clustering gets the failures this history "
-            "holds (fewer than 100 000); `make bench` runs the full sizes",
+            "5 million), the ingest corpora hold about 20 000 results each, and clustering gets the failures "
+            "this history holds (fewer than 100 000); `make bench` runs the full sizes",
         ),
     ),
     "full": Scale(

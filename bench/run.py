@@ -182,7 +182,8 @@ def main(argv: list[str] | None = None) -> int:
                          f"builds, {info['failed_results']:,} failed results, {info['defects']:,} defects "
                          f"(generator: {info['params']})",
         "small history": f"the most recent builds of the same history holding at least {scale.small_results:,} results",
-        "ingest corpus": f"the first builds of the history holding at least {scale.ingest_results:,} results",
+        "ingest corpora": f"(1) the first builds of the history and (2) only its nightly full runs, each holding at "
+                          f"least {scale.ingest_results:,} results",
         "repeats": scale.repeats,
     }
     (DATA_DIR / "media").mkdir(parents=True, exist_ok=True)
@@ -287,11 +288,12 @@ def summarise_results(results: dict, scale: Scale) -> None:
         except (KeyError, ValueError, ZeroDivisionError, TypeError) as exc:
             results["errors"][f"summary of {name}"] = f"{type(exc).__name__}: {exc}"
 
-    for key, label in (("ingest_pg", "PostgreSQL"), ("ingest_sqlite", "SQLite")):
-        if key in s:
-            add(key, lambda k=key, lb=label: (targets.extend(report.ingest_checks(s[k], label=lb)),
-                                               figures.extend(report.ingest_figures(s[k], label=lb))))
-            add(key, lambda k=key, lb=label: results["facts"].append(report.ingest_overhead_fact(s[k], label=lb)))
+    for key, vendor in (("ingest_pg", "PostgreSQL"), ("ingest_sqlite", "SQLite")):
+        for corpus, data in s.get(key, {}).get("corpora", {}).items():
+            lb = f"{vendor}, {corpus}"
+            add(key, lambda d=data, lb=lb: (targets.extend(report.ingest_checks(d, label=lb)),
+                                            figures.extend(report.ingest_figures(d, label=lb))))
+            add(key, lambda d=data, lb=lb: results["facts"].append(report.ingest_overhead_fact(d, label=lb)))
     for which in ("small", "large"):
         data = s.get(f"prepare_{which}")
         if data:

@@ -129,22 +129,21 @@ def rows_dump(columns: tuple[str, ...]):
         return cur.fetchall()
 
 
-def main() -> None:
-    args, scale = section_args(__doc__)
-    django_setup()
+#: The corpora: the first builds of the history (mostly pull-request builds of a few hundred results) and
+#: only the nightly full runs (one result per test case), so the fixed cost per build shows.
+CORPORA = {"first builds": None, "nightly builds": "nightly-full"}
+
+
+def corpus_measure(project_id: int, corpus: list[dict], repeats: int, *, label: str) -> dict:
     from django.db import connection
 
     from ingest.services.results import RESULT_COLUMNS
 
-    history, info = dataset_ensure(scale)
-    corpus, n_results = rows_prefix(manifest_rows(history), min_results=scale.ingest_results)
     paths = [r["_path"] for r in corpus]
     size = sum(os.path.getsize(p) for p in paths)
-    project_id = project_ensure(history / "components.json")
-    log(f"ingest[{connection.vendor}]: {len(corpus)} files, {n_results} results, {size / 1e6:.0f} MB")
     timings: dict = {}
     counts = {}
-    for rep in range(scale.repeats):
+    for rep in range(repeats):
         with Clock(database=False) as c:
             counts["parse"] = parse_ours(paths)
         timed(timings, "parse", c)
@@ -165,10 +164,26 @@ def main() -> None:
             cur.execute("SELECT COUNT(*) FROM ingest_testresult")
             counts["bulk"] = cur.fetchone()[0]
         del dump
-        log(f"ingest[{connection.vendor}] repeat {rep + 1}: " + ", ".join(
+        log(f"ingest[{connection.vendor}, {label}] repeat {rep + 1}: " + ", ".join(
             f"{k} {v['wall'][-1]:.2f}s/{v['cpu'][-1]:.2f}s cpu" for k, v in timings.items() if isinstance(v, dict)))
-    result_write(args.out, {"vendor": connection.vendor, "files": len(paths), "bytes": size,
-                            "results": n_results, "counts": counts, "timings": timings})
+    return {"files": len(paths), "bytes": size, "results": counts["parse"], "counts": counts, "timings": timings}
+
+
+def main() -> None:
+    args, scale = section_args(__doc__)
+    django_setup()
+    from django.db import connection
+
+    history, _ = dataset_ensure(scale)
+    rows = manifest_rows(history)
+    project_id = project_ensure(history / "components.json")
+    out: dict = {"vendor": connection.vendor, "corpora": {}}
+    for label, job in CORPORA.items():
+        picked = [r for r in rows if job is None or r["ci_job"] == job]
+        corpus, n_results = rows_prefix(picked, min_results=scale.ingest_results)
+        log(f"ingest[{connection.vendor}, {label}]: {len(corpus)} files, {n_results} results")
+        out["corpora"][label] = corpus_measure(project_id, corpus, scale.repeats, label=label)
+    result_write(args.out, out)
 
 
 if __name__ == "__main__":
