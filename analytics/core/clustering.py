@@ -34,7 +34,6 @@ from scipy.optimize import linear_sum_assignment
 from sklearn.base import BaseEstimator
 from sklearn.cluster import AgglomerativeClustering
 from sklearn.feature_extraction.text import ENGLISH_STOP_WORDS, TfidfVectorizer
-from sklearn.metrics import pairwise_distances_chunked
 from sklearn.pipeline import FeatureUnion, Pipeline
 from sklearn.preprocessing import Normalizer
 from sklearn.utils.validation import check_is_fitted
@@ -43,10 +42,8 @@ from analytics.core.signatures import normalise_message
 
 __all__ = [
     "DEFAULT_DISTANCE_THRESHOLD",
-    "DEFAULT_DUPLICATE_THRESHOLD",
     "FailureClusterer",
     "build_vectoriser",
-    "duplicate_defects",
     "match_defects",
     "pin_merge",
     "pin_split",
@@ -57,7 +54,6 @@ __all__ = [
 DEFAULT_DISTANCE_THRESHOLD = 0.5
 #: Cosine similarity from which two defects are reported as likely duplicates. On the test
 #: export, planted re-reports score 0.36-0.69 and the closest distinct defects at most 0.24.
-DEFAULT_DUPLICATE_THRESHOLD = 0.4
 #: Distance standing for "must never be joined" (cannot-link) in the precomputed matrix.
 _APART = 1e9
 
@@ -687,42 +683,3 @@ def match_defects(
     result = pd.DataFrame(rows, columns=list(columns))
     return result.astype(columns)
 
-
-def duplicate_defects(
-    defects: pd.DataFrame, *, threshold: float = DEFAULT_DUPLICATE_THRESHOLD
-) -> pd.DataFrame:
-    """Pairs of defects that are likely duplicates of each other.
-
-    Parameters
-    ----------
-    defects : DataFrame with columns ``key``, ``title``, ``description``
-    threshold : float, default DEFAULT_DUPLICATE_THRESHOLD
-        Smallest cosine similarity of the TF-IDF vectors reported.
-
-    Returns
-    -------
-    pandas.DataFrame
-        Columns ``key_a``, ``key_b`` (``key_a < key_b``, each pair once), ``score``; by score
-        descending, then keys. Similarities are computed in row blocks, so memory stays
-        linear in the number of defects apart from the pairs returned.
-    """
-    _check_score("threshold", threshold)
-    keys, texts = _defect_texts(defects, "defects")
-    columns = {"key_a": object, "key_b": object, "score": np.float64}
-    if len(keys) < 2:
-        return pd.DataFrame({name: pd.Series(dtype=dtype) for name, dtype in columns.items()})
-    matrix = sparse.csr_matrix(build_vectoriser().fit_transform(texts))
-    rows: list[tuple[str, str, float]] = []
-    start = 0
-    for chunk in pairwise_distances_chunked(matrix, metric="cosine"):
-        similarity = 1.0 - chunk
-        i_local, j = np.nonzero(similarity >= threshold)
-        i = i_local + start
-        for a, b in zip(i, j, strict=True):
-            if keys[a] < keys[b]:
-                rows.append((keys[a], keys[b], float(similarity[a - start, b])))
-        start += chunk.shape[0]
-    result = pd.DataFrame(rows, columns=list(columns)).astype(columns)
-    return result.sort_values(
-        ["score", "key_a", "key_b"], ascending=[False, True, True], kind="stable"
-    ).reset_index(drop=True)

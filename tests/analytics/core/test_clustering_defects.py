@@ -9,19 +9,14 @@ are computed with ``sklearn.metrics`` over every unordered pair of defects.
 
 from __future__ import annotations
 
-import itertools
-
 import pandas as pd
 import pytest
-from sklearn.metrics import precision_score, recall_score
 
 from analytics.core.clustering import (
     BAD_MIN_SCORE,
     BAD_TOP_K,
-    DEFAULT_DUPLICATE_THRESHOLD,
     MISSING_COLUMNS,
     FailureClusterer,
-    duplicate_defects,
     match_defects,
 )
 
@@ -284,40 +279,6 @@ def _export() -> tuple[pd.DataFrame, set[tuple[str, str]]]:
     return pd.DataFrame(rows), planted
 
 
-def test_planted_duplicates_are_found_with_precision_and_recall():
-    defects, planted = _export()
-    found = duplicate_defects(defects)
-    pairs = list(itertools.combinations(sorted(defects["key"]), 2))
-    truth = [pair in planted for pair in pairs]
-    reported = set(zip(found["key_a"], found["key_b"], strict=True))
-    predicted = [pair in reported for pair in pairs]
-    precision = precision_score(truth, predicted)  # sklearn.metrics reference implementation
-    recall = recall_score(truth, predicted)
-    print(f"duplicate defects: {len(found)} pairs reported, precision={precision:.3f}, recall={recall:.3f}")
-    assert precision >= 0.8 and recall >= 0.8
-
-
-def test_duplicate_pairs_are_ordered_unique_and_sorted():
-    defects, _ = _export()
-    found = duplicate_defects(defects, threshold=0.2)
-    assert list(found.columns) == ["key_a", "key_b", "score"]
-    assert (found["key_a"] < found["key_b"]).all()
-    assert not found.duplicated(["key_a", "key_b"]).any()
-    assert found["score"].is_monotonic_decreasing
-    assert ((found["score"] >= 0.2) & (found["score"] <= 1.0 + 1e-9)).all()
-    # a lower threshold reports a superset of the default one
-    default = duplicate_defects(defects)
-    assert set(zip(default["key_a"], default["key_b"])) <= set(zip(found["key_a"], found["key_b"]))
-    assert DEFAULT_DUPLICATE_THRESHOLD > 0.2
-
-
-def test_duplicate_defects_does_not_modify_input():
-    defects, _ = _export()
-    copy = defects.copy()
-    duplicate_defects(defects)
-    pd.testing.assert_frame_equal(defects, copy)
-
-
 # -- matching clusters to defects -------------------------------------------------------------------
 
 CLUSTER_TEXTS = {
@@ -376,11 +337,7 @@ def test_match_defects_min_score_drops_weak_matches():
         ),
         (lambda d: match_defects({0: "x"}, d, top_k=0), BAD_TOP_K.format(top_k=0)),
         (
-            lambda d: duplicate_defects(d, threshold=-0.1),
-            BAD_MIN_SCORE.format(name="threshold", value=-0.1),
-        ),
-        (
-            lambda d: duplicate_defects(d.drop(columns="title")),
+            lambda d: match_defects({0: "x"}, d.drop(columns="title")),
             MISSING_COLUMNS.format(frame="defects", columns="title"),
         ),
     ],
