@@ -13,6 +13,7 @@ import urllib.request
 import pytest
 from django.urls import NoReverseMatch, reverse
 
+from analytics.views.forecasts import SHEET_WEEKS
 from tests.browser.conftest import screenshot
 from tests.browser.demo_site import ADMIN, XSS, XSS_CLASS, XSS_COMPONENT, big_report
 
@@ -236,12 +237,14 @@ def test_failure_causes_pages(admin_page, site):
     screenshot(page, "causes-list")
     _clean(page)
     first = page.locator("main table tbody a")
-    if first.count():
-        first.first.click()
-        page.wait_for_load_state("load")
-        _charts_drawn(page)
-        screenshot(page, "causes-detail")
-        _clean(page)
+    # The demo plants failure causes (demo ground truth), so the list is never empty.
+    assert first.count() > 0, "the failure causes list is empty"
+    first.first.click()
+    page.wait_for_load_state("load")
+    assert page.url != site.page_url(_path("causes-list", slug=site.slug)), "the link did not open a cause"
+    assert _charts_drawn(page) >= 1  # the cause's failures-per-week chart
+    screenshot(page, "causes-detail")
+    _clean(page)
 
 
 def test_forecasts_page_and_png_export(admin_page, site):
@@ -261,7 +264,17 @@ def test_forecasts_page_and_png_export(admin_page, site):
 
 def test_printable_planning_sheet(admin_page, site):
     page = _open(admin_page, site, _path("forecasts-sheet", slug=site.slug))
-    _charts_drawn(page)
+    # The series come from the forecasts API (over the sheet's longest outlook), not from the sheet itself.
+    query = f"?horizon_weeks={max(SHEET_WEEKS)}"
+    api = page.request.get(site.page_url(_path("api-forecasts", slug=site.slug) + query))
+    assert api.status == 200, api.text()
+    series = api.json()["series"]
+    assert series
+    assert _charts_drawn(page) == len(series)
+    assert page.locator(".sheet-card .js-plotly-plot").count() == len(series)
+    assert page.locator(".sheet-card h2").count() == len(series)
+    # The reduced demo has few components: everything fits on one page, so no "next page" note.
+    assert page.get_by_text("more than fit on one printed page").count() == 0
     page.emulate_media(media="print")
     screenshot(page, "forecasts-sheet-print")
     _clean(page)
