@@ -56,6 +56,24 @@ SCALES = {
             "this history holds (fewer than 100 000); `make bench` runs the full sizes",
         ),
     ),
+    "mid": Scale(
+        name="mid",
+        large={"n_tests": 5_000, "n_days": 200, "builds_per_day": 15.0, "n_defects": 5_000},
+        small_results=50_000,
+        ingest_results=100_000,
+        repeats=3,
+        page_requests=30,
+        memory_file_mb=200,
+        cluster_failures=100_000,
+        uploads=20,
+        upload_results=2_000,
+        new_build_results=2_000,
+        notes=(
+            "mid scale (python -m bench.run --scale mid): the full scale's 200 days of history with a quarter "
+            "of its tests, about 1.25 million results, so each test has as many runs as at full size; the "
+            "small history is the most recent 50 thousand results as at full size",
+        ),
+    ),
     "full": Scale(
         name="full",
         large={},  # the generator's bench preset: 20 000 tests, about 3 000 builds, 5 million results

@@ -23,7 +23,7 @@ from bench.config import django_env as env_for
 from bench.db import migrate, pg_analyze, pg_database_create, pg_setting
 
 SECTIONS = ("prepare", "ingest", "memory", "clustering", "analytics", "pages", "load", "profile")
-SECTION_TIMEOUT = {"quick": 900, "full": 3600}
+SECTION_TIMEOUT = {"quick": 900, "mid": 1800, "full": 3600}
 
 
 def log(text: str) -> None:
