@@ -18,6 +18,7 @@ from django.db.models import F, Q
 from django.http import Http404, HttpRequest, HttpResponse, JsonResponse
 from django.shortcuts import get_object_or_404, redirect
 from django.urls import path, reverse
+from django.utils import timezone
 from django.views.decorators.http import require_POST
 
 from analytics.views.common import (
@@ -29,6 +30,7 @@ from analytics.views.common import (
     sort_param,
     table_download,
 )
+from barometer_common.uploads import upload_refused
 from ingest.api.auth import can_import
 from ingest.models import Build, DefectColumnMap, ImportJob, Outcome, TestResult
 from ingest.parsers.defects import DEFECT_FIELDS, REQUIRED_FIELDS, ColumnMap, ColumnMapError
@@ -42,8 +44,11 @@ ERR_NO_FILE = "Choose a defect export file (CSV or JSON) to upload."
 ERR_TOO_LARGE = "{name} is {size} bytes; the limit is {limit} bytes (BAROMETER_MAX_UPLOAD_BYTES)."
 ERR_MAP_EXISTS = ("A column map named “{name}” is already saved and only admins may change it. Choose another "
                   "name, or untick “save it” to import with this mapping without saving it.")
+ERR_REQUEST_TOO_LARGE = ("{name} was not stored: the upload is {size} bytes; the limit is {limit} bytes "
+                         "(BAROMETER_MAX_UPLOAD_BYTES).")
 ERR_UPLOAD_GONE = "This upload is no longer in your session; upload the file again."
 MSG_RETRIED = "Import #{pk} was queued again."
+MSG_ALREADY_QUEUED = "Import #{pk} is already queued again (another retry came first)."
 MSG_QUEUED = "The defect export was stored and its import #{pk} is queued."
 SESSION_UPLOADS = "defect_uploads"
 PREVIEW_ROWS = 20
@@ -241,11 +246,32 @@ def job_retry(request: HttpRequest, pk: int) -> HttpResponse:
     if not _retryable(job):
         messages.error(request, ERR_NOT_RETRYABLE.format(status=job.status))
         return redirect("import-job", slug=request.project.slug, pk=job.pk)
-    ImportJob.objects.filter(pk=job.pk).update(status=ImportJob.Status.QUEUED, enqueued_at=None, progress=0.0)
+    if not _retry_claim(job):
+        messages.info(request, MSG_ALREADY_QUEUED.format(pk=job.pk))
+        return redirect("import-job", slug=request.project.slug, pk=job.pk)
     job.refresh_from_db()
-    transaction.on_commit(lambda: job_enqueue(job))
+    transaction.on_commit(lambda: _retry_enqueue(job))
     messages.success(request, MSG_RETRIED.format(pk=job.pk))
     return redirect("import-job", slug=request.project.slug, pk=job.pk)
+
+
+def _retry_claim(job: ImportJob) -> bool:
+    """Queue the job again only if it is still in the state this request saw: one conditional UPDATE.
+
+    Of two quick retries only the first matches; the second updates no row. ``enqueued_at`` is set in the
+    same UPDATE (so a never-queued job also leaves its retryable state) and cleared again if the broker
+    refuses the task, which leaves the job to ``sweep_unqueued_imports``.
+    """
+    seen = ImportJob.objects.filter(pk=job.pk, status=job.status)
+    if job.status == ImportJob.Status.QUEUED:
+        seen = seen.filter(enqueued_at__isnull=True)
+    changed = seen.update(status=ImportJob.Status.QUEUED, enqueued_at=timezone.now(), progress=0.0)
+    return changed == 1
+
+
+def _retry_enqueue(job: ImportJob) -> None:
+    if not job_enqueue(job):
+        ImportJob.objects.filter(pk=job.pk, status=ImportJob.Status.QUEUED).update(enqueued_at=None)
 
 
 # --------------------------------------------------------------------------------------------------- defects
@@ -262,7 +288,10 @@ def defects_upload(request: HttpRequest) -> HttpResponse:
     if request.method == "POST":
         upload = request.FILES.get("file")
         limit = settings.BAROMETER_MAX_UPLOAD_BYTES
-        if upload is None:
+        refused = upload_refused(request)  # stopped by the upload handler before the file was read
+        if refused is not None:
+            error = ERR_REQUEST_TOO_LARGE.format(name=refused.name, size=refused.size, limit=refused.limit)
+        elif upload is None:
             error = ERR_NO_FILE
         elif upload.size > limit:
             error = ERR_TOO_LARGE.format(name=upload.name, size=upload.size, limit=limit)

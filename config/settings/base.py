@@ -117,6 +117,12 @@ BAROMETER_MAX_UPLOAD_BYTES = env.int("BAROMETER_MAX_UPLOAD_BYTES", default=250 *
 DATA_UPLOAD_MAX_MEMORY_SIZE = 10 * 1024 * 1024
 FILE_UPLOAD_MAX_MEMORY_SIZE = 5 * 1024 * 1024
 FILE_UPLOAD_TEMP_DIR = env.str("FILE_UPLOAD_TEMP_DIR", default=None)
+# The size check first, so an upload over BAROMETER_MAX_UPLOAD_BYTES stops before its file is stored.
+FILE_UPLOAD_HANDLERS = [
+    "barometer_common.uploads.UploadSizeLimitHandler",
+    "django.core.files.uploadhandler.MemoryFileUploadHandler",
+    "django.core.files.uploadhandler.TemporaryFileUploadHandler",
+]
 # Embedded mode: run queued tasks in a background thread of the web process (live import progress).
 BAROMETER_EAGER_IN_THREAD = env.bool("BAROMETER_EAGER_IN_THREAD", default=True)
 # Analytics: how many consecutive green runs make a quarantined test a candidate for release.
@@ -157,6 +163,8 @@ SPECTACULAR_SETTINGS = {
     "DESCRIPTION": "Upload test results and defect exports; read flaky-test scores, failure causes and forecasts.",
     "VERSION": "1.0.0",
     "SERVE_INCLUDE_SCHEMA": False,
+    # The schema lists every endpoint and field: only callers with a token or a session may read it.
+    "SERVE_PERMISSIONS": ["rest_framework.permissions.IsAuthenticated"],
 }
 
 # Hardened defaults when not in DEBUG.

@@ -13,6 +13,7 @@ from __future__ import annotations
 import json
 import logging
 import os
+import tempfile
 from collections.abc import Iterable
 from dataclasses import dataclass, field
 from datetime import datetime
@@ -52,6 +53,10 @@ ERR_NOT_DEFECTS = "import job {job_id} is a {kind} import, not a defect export"
 ERR_KEY_TOO_LONG = "key is longer than {limit} characters"
 ERR_NO_MAP = "no saved column map named {name!r} in project {slug!r} (saved: {known})"
 REJECTED_CSV_HEADER = ("line", "column", "field", "reason", "raw values")
+PREVIEW_SAMPLE_ROWS = 2000  # records the mapping page reads (shown rows, map check, date formats)
+PREVIEW_SAMPLED_WARNING = (
+    "This preview and its date-format check read the first {rows} records only; the import reads the whole file."
+)
 RAW_LIMIT = 1000  # characters of a rejected record's raw values kept on the job
 RAW_ROWS = 1000  # rejected records whose raw values are kept (all are listed; the raw file holds the rest)
 WARN_TRUNCATED = "{field} longer than {limit} characters was shortened (rows: {count}, first on line {line})"
@@ -512,26 +517,35 @@ def defect_export_preview(
     column_map: ColumnMap | None,
     limit: int = 20,
     filename: str | None = None,
+    sample_rows: int = PREVIEW_SAMPLE_ROWS,
 ) -> dict:
     """What an export holds and, with a map, how the map reads its first rows. Writes nothing.
+
+    Only the first ``sample_rows`` records are parsed (the mapping page calls this on every request): the
+    rows shown, the check of the map and the settling of each date column's format all read that sample,
+    so a large export does not slow the page down. The import itself (:func:`defects_job_run`) reads the
+    whole file and may settle a date format differently when later rows decide it; ``sampled`` is True and
+    :data:`PREVIEW_SAMPLED_WARNING` is the last warning when the file holds more records than the sample.
 
     Returns a dict (JSON-serialisable; every string in it comes from the upload and must be escaped when
     shown): ``source``, ``format`` ("csv", "json" or "jsonl"), ``encoding``, ``delimiter`` ("" for JSON),
     ``warnings`` (e.g. the Latin-1 fallback), ``columns`` (header names, or the dotted paths of the first
-    JSON record), ``rows`` (the first ``limit`` records: ``{"line", "values", "problem"}``), and with a map
-    ``date_formats`` (column → format used), ``mapped`` (the first ``limit`` valid rows, dates in ISO 8601
-    UTC) and ``row_errors`` (rejected rows among the first ``limit`` records: line, column, field, reason).
-    ``error`` holds a whole-file problem (unreadable file, mapped column missing, ambiguous dates);
-    then the other keys hold what could be found before it.
+    JSON record), ``rows`` (the first ``limit`` records: ``{"line", "values", "problem"}``), ``sampled``,
+    and with a map ``date_formats`` (column → format used), ``mapped`` (the first ``limit`` valid rows,
+    dates in ISO 8601 UTC) and ``row_errors`` (rejected rows among the first ``limit`` records: line,
+    column, field, reason). ``error`` holds a whole-file problem (unreadable file, mapped column missing,
+    ambiguous dates); then the other keys hold what could be found before it.
     """
+    source = filename or os.path.basename(os.fspath(path))
     out: dict[str, Any] = {
-        "source": filename or os.path.basename(os.fspath(path)),
+        "source": source,
         "format": "",
         "encoding": "",
         "delimiter": "",
         "warnings": [],
         "columns": [],
         "rows": [],
+        "sampled": False,
         "date_formats": {},
         "mapped": [],
         "row_errors": [],
@@ -546,24 +560,56 @@ def defect_export_preview(
             warnings=list(info.warnings),
             columns=list(info.columns),
         )
+        sample: list = []
+        cut_line = None  # where the first record after the sample starts
         for record in records:
-            if len(out["rows"]) >= limit:
+            if len(sample) >= sample_rows:
+                cut_line = record.line
                 break
-            out["rows"].append(
-                {"line": record.line, "values": dict(record.values), "problem": record.problem}
-            )
+            sample.append(record)
+        out["rows"] = [
+            {"line": r.line, "values": dict(r.values), "problem": r.problem} for r in sample[:limit]
+        ]
+        note = [PREVIEW_SAMPLED_WARNING.format(rows=sample_rows)] if cut_line is not None else []
+        out["sampled"] = cut_line is not None
+        out["warnings"] = [*out["warnings"], *note]
         if column_map is None:
             return out
-        result = defect_rows(path, column_map, filename=filename)
-        out["date_formats"] = dict(result.date_formats)
-        out["warnings"] = list(result.file_warnings)
-        for n, item in enumerate(result):
-            if n >= limit:
-                break
-            if isinstance(item, RowError):
-                out["row_errors"].append(_row_error_dict(item))
-            else:
-                out["mapped"].append(_jsonable_row(item))
+        with tempfile.TemporaryDirectory(prefix="barometer-preview-") as tmp:
+            read_path = path if cut_line is None else _preview_sample_file(
+                path=path, info=info, sample=sample, cut_line=cut_line, folder=tmp
+            )
+            result = defect_rows(read_path, column_map, filename=source)
+            out["date_formats"] = dict(result.date_formats)
+            out["warnings"] = [*dict.fromkeys([*info.warnings, *result.file_warnings]), *note]
+            for n, item in enumerate(result):
+                if n >= limit:
+                    break
+                if isinstance(item, RowError):
+                    out["row_errors"].append(_row_error_dict(item))
+                else:
+                    out["mapped"].append(_jsonable_row(item))
     except DefectExportError as exc:
         out["error"] = str(exc)
     return out
+
+
+def _preview_sample_file(*, path, info, sample: list, cut_line: int, folder: str) -> str:
+    """The first records of an export as a file of the same format, with the same line numbers.
+
+    CSV and JSON lines: the text up to the line where the first record after the sample starts, in the
+    file's own encoding and line endings. A JSON document: an array of the sampled records (a record's
+    ``line`` there is its index, which stays the same).
+    """
+    target = os.path.join(folder, "sample.json" if info.format == "json" else "sample.txt")
+    if info.format == "json":
+        with open(target, "w", encoding="utf-8") as fh:
+            json.dump([r.values for r in sample], fh, ensure_ascii=False)
+        return target
+    with open(path, encoding=info.encoding, newline="") as src, \
+            open(target, "w", encoding=info.encoding, newline="") as dst:
+        for number, text in enumerate(src, start=1):
+            if number >= cut_line:
+                break
+            dst.write(text)
+    return target

@@ -9,15 +9,21 @@ The exports and reports are invented (the marina berth-booking scenario) and are
 from __future__ import annotations
 
 import io
+import json
+from pathlib import Path
 
 import pytest
 from django.contrib.auth.models import Group, Permission, User
 from django.core.files.uploadedfile import SimpleUploadedFile
+from django.core.files.uploadhandler import MemoryFileUploadHandler, TemporaryFileUploadHandler
+from django.http.multipartparser import MultiPartParser
 from django.urls import reverse
 from rest_framework.test import APIClient
 
+from barometer_common.uploads import RefusedUpload, UploadSizeLimitHandler, upload_refused
 from ingest.api.auth import ERR_CANNOT_IMPORT, ERR_FOREIGN_TOKEN
-from ingest.models import ApiToken, Build, DefectColumnMap, ImportJob, Project
+from ingest.models import ApiToken, Build, Defect, DefectColumnMap, ImportJob, Project
+from ingest.services.defects import PREVIEW_SAMPLED_WARNING, defect_export_preview
 from ingest.services.results import (
     ERR_CONTROL_CHARS,
     BuildMeta,
@@ -25,7 +31,7 @@ from ingest.services.results import (
     results_job_create,
     results_job_run,
 )
-from ingest.views import ERR_MAP_EXISTS
+from ingest.views import ERR_MAP_EXISTS, ERR_REQUEST_TOO_LARGE, MSG_ALREADY_QUEUED, SESSION_UPLOADS
 
 REPORT = (b'<testsuite name="s" tests="1"><testcase classname="berthwise.Gate" name="opens" time="0.1"/>'
           b"</testsuite>")
@@ -217,3 +223,199 @@ def test_triager_may_save_a_new_map_and_staff_may_overwrite(client, triager, pro
     assert done.status_code == 302
     assert DefectColumnMap.objects.get(name="desk").definition["closed_statuses"] == ["Done"]
     assert ImportJob.objects.filter(kind=ImportJob.Kind.DEFECTS).count() == 2
+
+
+# ----------------------------------------------------------------------- 6: oversized uploads stop before the file
+BIG = b"Key,Title,Created,Status\r\n" + b"BW-9,Pontoon lights flicker,2026-03-01T08:00:00Z,New\r\n" * 3000
+LIMIT = 1000  # far below len(BIG) + MULTIPART_OVERHEAD_BYTES
+
+
+def _multipart(boundary: str, fields: dict[str, str], file_name: str, content: bytes) -> bytes:
+    """An RFC 7578 multipart/form-data body: the fields first, then one file part."""
+    parts = [f'--{boundary}\r\nContent-Disposition: form-data; name="{k}"\r\n\r\n{v}\r\n'.encode()
+             for k, v in fields.items()]
+    parts.append(f'--{boundary}\r\nContent-Disposition: form-data; name="file"; filename="{file_name}"\r\n'
+                 f"Content-Type: text/csv\r\n\r\n".encode() + content + b"\r\n")
+    return b"".join(parts) + f"--{boundary}--\r\n".encode()
+
+
+def test_size_handler_stops_the_parse_at_the_file_and_keeps_the_fields_before_it(settings, rf):
+    settings.BAROMETER_MAX_UPLOAD_BYTES = LIMIT
+    body = _multipart("b0und", {"csrfmiddlewaretoken": "tok", "map": "desk"}, "big.csv", BIG)
+    stream = io.BytesIO(body)
+    request = rf.post("/")
+    meta = {"CONTENT_TYPE": "multipart/form-data; boundary=b0und", "CONTENT_LENGTH": str(len(body))}
+    handlers = [UploadSizeLimitHandler(request), MemoryFileUploadHandler(request),
+                TemporaryFileUploadHandler(request)]
+    post, files = MultiPartParser(meta, stream, handlers).parse()
+    assert post.get("csrfmiddlewaretoken") == "tok" and post.get("map") == "desk"
+    assert not files
+    assert stream.tell() < len(BIG)  # the file's bytes were not read
+    assert upload_refused(request) == RefusedUpload(name="big.csv", size=len(body), limit=LIMIT)
+
+
+def test_size_handler_passes_an_upload_within_the_limit(settings, rf):
+    settings.BAROMETER_MAX_UPLOAD_BYTES = len(BIG)
+    body = _multipart("b0und", {"map": "desk"}, "big.csv", BIG)
+    request = rf.post("/")
+    meta = {"CONTENT_TYPE": "multipart/form-data; boundary=b0und", "CONTENT_LENGTH": str(len(body))}
+    handlers = [UploadSizeLimitHandler(request), MemoryFileUploadHandler(request)]
+    _, files = MultiPartParser(meta, io.BytesIO(body), handlers).parse()
+    assert files["file"].read() == BIG and upload_refused(request) is None
+
+
+def test_web_defect_upload_over_the_limit_is_refused_before_the_file_is_read(client, triager, project, settings):
+    assert settings.FILE_UPLOAD_HANDLERS[0] == "barometer_common.uploads.UploadSizeLimitHandler"
+    settings.BAROMETER_MAX_UPLOAD_BYTES = LIMIT
+    client.force_login(triager)
+    response = client.post(reverse("defects-upload", kwargs={"slug": "berthwise"}),
+                           {"file": SimpleUploadedFile("big.csv", BIG, content_type="text/csv")})
+    assert response.status_code == 200
+    assert not response.wsgi_request.FILES  # stopped at the file part, nothing streamed to a temporary file
+    refused = upload_refused(response.wsgi_request)
+    assert refused is not None and refused.size > len(BIG)
+    assert ERR_REQUEST_TOO_LARGE.format(name="big.csv", size=refused.size, limit=LIMIT) in response.content.decode()
+    assert not (Path(settings.MEDIA_ROOT) / "uploads").exists()
+    assert SESSION_UPLOADS not in client.session
+
+
+def test_api_upload_over_the_limit_is_still_413(project, settings):
+    # RFC 9110 §15.5.14 (413 Content Too Large); ingest/api/views.py checks Content-Length first.
+    settings.BAROMETER_MAX_UPLOAD_BYTES = LIMIT
+    client = APIClient()
+    client.credentials(HTTP_AUTHORIZATION=f"Bearer {ApiToken.issue(project=project, name='ci')[1]}")
+    payload = {"file": io.BytesIO(BIG), "column_map": CMAP}
+    payload["file"].name = "big.csv"
+    response = client.post("/api/v1/projects/berthwise/defects/", payload, format="multipart")
+    assert response.status_code == 413 and "limit" in response.json()["detail"]
+    assert ImportJob.objects.count() == 0
+
+
+# ----------------------------------------------------------------------- 7: the mapping page reads a sample only
+def _desk_map():
+    from ingest.parsers.defects import ColumnMap
+
+    return ColumnMap.from_dict({**DESK, "date_format": None})
+
+
+def _csv_export(n: int) -> bytes:
+    # Row 2 spans two physical lines (a quoted line break: RFC 4180 §2.6), row 3 has no title.
+    rows = ['BW-1,"Gate code\nrejected",2026-03-01T08:00:00Z,New', "BW-2,,2026-03-02T08:00:00Z,New"]
+    rows += [f"BW-{k},Pontoon light {k},2026-03-03T08:00:00Z,Done" for k in range(3, n + 1)]
+    return ("Key,Title,Created,Status\r\n" + "\r\n".join(rows) + "\r\n").encode()
+
+
+def test_preview_parses_only_the_sample_of_a_large_export(tmp_path, monkeypatch):
+    from ingest.parsers import defects as parser
+
+    path = tmp_path / "big.csv"
+    path.write_bytes(_csv_export(60))
+    read_from_upload = []
+    original = parser._iter_csv
+
+    def counting(file_path, *args, **kwargs):
+        for record in original(file_path, *args, **kwargs):
+            if str(file_path) == str(path):
+                read_from_upload.append(record.line)
+            yield record
+
+    monkeypatch.setattr(parser, "_iter_csv", counting)
+    preview = defect_export_preview(path=path, column_map=_desk_map(), limit=5, sample_rows=10)
+    assert len(read_from_upload) <= 11  # the sample and the first record after it, nothing more
+    assert preview["sampled"] and preview["warnings"][-1] == PREVIEW_SAMPLED_WARNING.format(rows=10)
+    assert preview["date_formats"] == {"Created": "iso"}
+
+
+@pytest.mark.parametrize("kind", ["csv", "jsonl", "json"])
+def test_preview_of_a_sample_reads_the_first_rows_like_the_full_file(tmp_path, kind):
+    from ingest.parsers.defects import defect_rows
+
+    if kind == "csv":
+        data = _csv_export(30)
+    else:
+        records = [{"Key": f"BW-{k}", "Title": "" if k == 2 else f"Berth {k}", "Created": "2026-03-01T08:00:00Z",
+                    "Status": "New"} for k in range(1, 31)]
+        data = (json.dumps(records) if kind == "json" else "\n".join(json.dumps(r) for r in records)).encode()
+    path = tmp_path / f"export.{kind}"
+    path.write_bytes(data)
+    sampled = defect_export_preview(path=path, column_map=_desk_map(), limit=8, sample_rows=6)
+    whole = defect_export_preview(path=path, column_map=_desk_map(), limit=8, sample_rows=10_000)
+    assert sampled["sampled"] and not whole["sampled"]
+    assert PREVIEW_SAMPLED_WARNING.format(rows=6) not in whole["warnings"]
+    # The reference: the parser's own full read of the file, first rows (line numbers included).
+    full = list(defect_rows(path, _desk_map()))
+    first = [item.line for item in full][:6]
+    assert sorted([r["line"] for r in sampled["mapped"]] + [e["line"] for e in sampled["row_errors"]]) == first
+    assert sampled["rows"] == whole["rows"][:6]  # limit 8, but the sample holds 6
+    assert sampled["row_errors"] == whole["row_errors"]  # the one bad row (no title) is among the first
+
+
+def test_import_after_a_sampled_preview_still_reads_every_row(client, triager, project,
+                                                              django_capture_on_commit_callbacks):
+    from ingest.services.defects import PREVIEW_SAMPLE_ROWS
+
+    n = PREVIEW_SAMPLE_ROWS + 5
+    client.force_login(triager)
+    response = client.post(reverse("defects-upload", kwargs={"slug": "berthwise"}),
+                           {"file": SimpleUploadedFile("bugs.csv", _csv_export(n), content_type="text/csv")})
+    map_url = response["Location"]
+    page = client.get(map_url)
+    assert PREVIEW_SAMPLED_WARNING.format(rows=PREVIEW_SAMPLE_ROWS) in page.content.decode()
+    form = {**MAP_FORM, "closed_statuses": "Done"}
+    form.pop("save_map")
+    with django_capture_on_commit_callbacks(execute=True):
+        done = client.post(map_url, form)
+    assert done.status_code == 302
+    job = ImportJob.objects.get(kind=ImportJob.Kind.DEFECTS)
+    assert Defect.objects.filter(project=project).count() == n - 1  # all but BW-2 (no title)
+    assert [e["line"] for e in job.row_errors] == [4]
+
+
+# ----------------------------------------------------------------------- 5: a retry is queued once
+def _failed_job(project) -> ImportJob:
+    job = results_job_create(project=project, files=[("broken.xml", io.BytesIO(b"<testsuite><testcase name='x'>"))],
+                             meta=BuildMeta(build="pr-8"), via="cli")
+    with pytest.raises(ResultsImportError):
+        results_job_run(job=job, refresh=False)
+    job.refresh_from_db()
+    assert job.status == ImportJob.Status.FAILED
+    return job
+
+
+def test_two_quick_retries_queue_the_import_once(client, triager, project, monkeypatch,
+                                                 django_capture_on_commit_callbacks):
+    job = _failed_job(project)
+    queued = []
+    monkeypatch.setattr("ingest.views.job_enqueue", lambda j: queued.append(j.pk) or True)
+    client.force_login(triager)
+    url = reverse("import-job-retry", kwargs={"slug": "berthwise", "pk": job.pk})
+    with django_capture_on_commit_callbacks(execute=True):
+        client.post(url)
+        client.post(url)  # sent before the first one's task started
+    assert queued == [job.pk]
+
+
+def test_a_retry_that_loses_the_race_says_already_queued(client, triager, project, monkeypatch):
+    job = _failed_job(project)
+    stale = ImportJob.objects.get(pk=job.pk)  # what the second request read, before the first one's UPDATE
+    queued = []
+    monkeypatch.setattr("ingest.views.job_enqueue", lambda j: queued.append(j.pk) or True)
+    client.force_login(triager)
+    url = reverse("import-job-retry", kwargs={"slug": "berthwise", "pk": job.pk})
+    client.post(url)
+    monkeypatch.setattr("ingest.views.get_object_or_404", lambda *a, **kw: stale)
+    response = client.post(url, follow=True)
+    assert MSG_ALREADY_QUEUED.format(pk=job.pk) in response.content.decode()
+    assert ImportJob.objects.get(pk=job.pk).status == ImportJob.Status.QUEUED
+
+
+def test_a_retry_the_broker_refuses_is_left_to_the_sweep(client, triager, project, monkeypatch,
+                                                        django_capture_on_commit_callbacks):
+    job = _failed_job(project)
+    monkeypatch.setattr("ingest.views.job_enqueue", lambda j: False)
+    client.force_login(triager)
+    with django_capture_on_commit_callbacks(execute=True):
+        client.post(reverse("import-job-retry", kwargs={"slug": "berthwise", "pk": job.pk}))
+    job.refresh_from_db()
+    # queued and never handed to a broker: exactly what sweep_unqueued_imports picks up
+    assert job.status == ImportJob.Status.QUEUED and job.enqueued_at is None

@@ -83,6 +83,8 @@ def test_broken_upload_gives_failed_job_with_reason(project, key, django_capture
     assert TestResult.objects.count() == 0
 
 
-def test_openapi_schema_is_served(db):
-    response = APIClient().get("/api/schema/")
+def test_openapi_schema_is_served(project, key):
+    client = APIClient()
+    client.credentials(HTTP_AUTHORIZATION=f"Bearer {key}")
+    response = client.get("/api/schema/")
     assert response.status_code == 200 and b"/api/v1/projects/{slug}/results/" in response.content
