@@ -103,7 +103,8 @@ def flaky_table_qs(
         qs = qs.filter(score__gte=min_score)
     for word in (search or "").split():
         qs = qs.filter(Q(test_case__name__icontains=word) | Q(test_case__classname__icontains=word))
-    return qs.order_by(order, "test_case__classname", "test_case__name", "test_case_id")
+    # Ties (many clear-cut suspects score ~1.0) go to the test that failed most, then by name.
+    return qs.order_by(order, "-failures", "test_case__classname", "test_case__name", "test_case_id")
 
 
 def triage_state_of(test_case: TestCase) -> str:
