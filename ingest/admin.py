@@ -70,8 +70,11 @@ class ApiTokenAdmin(admin.ModelAdmin):
 def retry_imports(modeladmin, request, queryset):
     count = 0
     for job in queryset.filter(status=models.ImportJob.Status.FAILED):
-        models.ImportJob.objects.filter(pk=job.pk).update(status=models.ImportJob.Status.QUEUED, enqueued_at=None)
-        count += job_enqueue(job)
+        # Claim the job with one conditional update, so a concurrent retry (page, admin, CLI) cannot queue it twice.
+        claimed = models.ImportJob.objects.filter(pk=job.pk, status=models.ImportJob.Status.FAILED).update(
+            status=models.ImportJob.Status.QUEUED, enqueued_at=None)
+        if claimed:
+            count += job_enqueue(job)
     modeladmin.message_user(request, f"{count} job(s) queued again.")
 
 

@@ -34,6 +34,11 @@ class Command(BaseCommand):
             raise CommandError("nothing selected: give --failed, --job N or --build ID")
         failures = 0
         for job in selected:
+            if job.status == ImportJob.Status.FAILED and not ImportJob.objects.filter(
+                pk=job.pk, status=ImportJob.Status.FAILED
+            ).update(status=ImportJob.Status.QUEUED):
+                self.stdout.write(f"job {job.pk}: skipped, someone else retried it meanwhile")
+                continue
             try:
                 counts = results_job_run(job=job)
                 self.stdout.write(f"job {job.pk}: done, {counts.tests} results")
