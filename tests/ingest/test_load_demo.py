@@ -57,9 +57,35 @@ def test_load_demo_twice_leaves_the_same_rows(tmp_path):
     assert triager.groups.filter(name="triagers").exists()
     assert not viewer.is_staff and not viewer.get_all_permissions()
     assert "change" in out.getvalue()  # the note to change the demo passwords
+    pages_have_data(demo)
 
     call_command("load_demo", data=data, stdout=io.StringIO())
     second = counts()
     # Only the defect import leaves a (no-change) job record; the results backfill is skipped outright.
     assert second == {**first, "ImportJob": first["ImportJob"] + 1}
     assert Defect.objects.count() == planted
+
+
+def pages_have_data(user) -> None:
+    """Every dashboard page of the loaded demo shows rows or drawn charts, not an empty state."""
+    from django.test import Client
+    from django.urls import reverse
+    from lxml import html as lxml_html
+
+    from analytics.models import FailureCluster, ForecastSnapshot
+    from demo_fixtures.texts import PROJECT_SLUG
+
+    assert FailureCluster.objects.exists() and ForecastSnapshot.objects.exists()
+    client = Client()
+    client.force_login(user)
+    # (page, id of the table whose body must have rows, or None, least number of plotly charts)
+    expected = [("overview", None, 4), ("flaky-list", "flaky-table", 0), ("causes-list", "causes-table", 0),
+                ("forecasts", "forecast-table", 1), ("imports", "jobs-table", 0)]
+    for name, table_id, charts in expected:
+        response = client.get(reverse(name, kwargs={"slug": PROJECT_SLUG}))
+        assert response.status_code == 200, name
+        tree = lxml_html.fromstring(response.content)
+        if table_id:
+            rows = tree.xpath(f'//table[@id="{table_id}"]/tbody/tr[td and not(td[@colspan])]')
+            assert len(rows) > 0, f"{name}: no rows in #{table_id}"
+        assert len(tree.xpath('//div[contains(@class, "plotly-graph-div")]')) >= charts, name
