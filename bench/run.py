@@ -88,10 +88,20 @@ def _git() -> str:
     return head.strip() + (" (working tree with uncommitted changes of others)" if dirty.strip() else "")
 
 
+def _ingest_code_sha() -> str:
+    """Hash of the ingest code and the migrations: a history loaded by other code is loaded again."""
+    import hashlib
+
+    digest = hashlib.sha256()
+    for path in sorted([*ROOT.glob("ingest/**/*.py"), *ROOT.glob("analytics/migrations/*.py")]):
+        digest.update(path.read_bytes())
+    return digest.hexdigest()[:16]
+
+
 def _prepare_db(scale: Scale, which: str, info: dict, parts: Path, results: dict) -> None:
     """Create and load the small/large history database unless an identical one is there already."""
     stamp = DATA_DIR / scale.name / f"{which}.db.json"
-    wanted = {"params_sha": info["params_sha"], "small_results": scale.small_results}
+    wanted = {"params_sha": info["params_sha"], "small_results": scale.small_results, "ingest_code": _ingest_code_sha()}
     url = database_url(scale.name, which)
     if stamp.exists() and json.loads(stamp.read_text()).get("key") == wanted:
         migrate(url)
