@@ -142,6 +142,8 @@ def load_checks(data: dict, *, expected_rows: int) -> list[dict]:
         {"check": f"jobs done with {expected_rows} rows", "value": f"{data['jobs_ok']}/{data['uploads']}",
          "met": data["jobs_ok"] == data["uploads"]},
         {"check": "page read errors", "value": data.get("read_errors", 0), "met": data.get("read_errors", 0) == 0},
+        {"check": "after-build refreshes left in the queue", "value": data.get("queue_left", "not measured"),
+         "met": data.get("queue_left") == 0},
     ]
 
 

@@ -202,6 +202,8 @@ def main(argv: list[str] | None = None) -> int:
     }
     (DATA_DIR / "media").mkdir(parents=True, exist_ok=True)
 
+    if args.merge and "prepare" not in only and {"analytics", "pages", "load"} & only:
+        results["meta"]["notes"][-1] += " (and prepare: the history databases they need)"
     if "prepare" in only or {"analytics", "pages", "load"} & only:
         for which in ("small", "large"):
             attempt(f"prepare {which}", lambda w=which: _prepare_db(scale, w, info, parts, results))
@@ -366,7 +368,9 @@ def summarise_results(results: dict, scale: Scale) -> None:
                     f"{ld['upload_wall']:.1f} s ({ld['uploads'] / ld['upload_wall']:.1f} uploads/s, upload p95 "
                     f"{ld['upload_p95']:.2f} s); all jobs done {ld['all_jobs_done_seconds']:.1f} s after the start "
                     f"({ld['uploads'] * scale.upload_results / ld['all_jobs_done_seconds']:,.0f} results/s through "
-                    f"the Celery worker, analytics refresh after each build included)"]
+                    f"the Celery worker); the after-build analytics refreshes they queued were all taken "
+                    f"{ld.get('queue_drained_seconds', float('nan')):.1f} s after the start "
+                    f"({ld.get('queue_left', '?')} left in the queue)"]
             if ld.get("reads"):
                 figs.append(f"page reads during the uploads ({', '.join(ld['pages'])}): {ld['reads']} requests, "
                             f"{ld['reads_per_second']:.1f} requests/s, median {ld['read_median'] * 1000:.0f} ms, "

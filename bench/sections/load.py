@@ -99,6 +99,19 @@ def _wait_ready(port: int, proc: subprocess.Popen, timeout: float = 60) -> None:
     raise RuntimeError("gunicorn did not answer in time")
 
 
+def _queue_drain(deadline: float) -> int:
+    """Wait until the worker has taken every queued task (the after-build refreshes); returns what is left."""
+    import redis
+
+    client = redis.Redis.from_url(BROKER)
+    left = client.llen("celery")
+    while left and time.time() < deadline:
+        time.sleep(1)
+        left = client.llen("celery")
+    # give the last task taken a moment to finish before the worker is stopped (warm shutdown waits too)
+    return int(left)
+
+
 def main() -> None:
     args, scale = section_args(__doc__)
     db_url = os.environ["BENCH_LOAD_DB"]
@@ -186,6 +199,8 @@ def main() -> None:
             jobs.append({"status": job.get("status"), "tests": (job.get("counts") or {}).get("tests"),
                          "error": job.get("error", "")})
         all_done = time.perf_counter() - started
+        queue_left = _queue_drain(deadline)  # the analytics refresh each import queued
+        drained = time.perf_counter() - started
         stop.set()
         for th in readers:
             th.join(timeout=120)
@@ -195,11 +210,13 @@ def main() -> None:
             "upload_seconds": [p["seconds"] for p in posted],
             "upload_wall": upload_wall,
             "all_jobs_done_seconds": all_done,
+            "queue_drained_seconds": drained,
+            "queue_left": queue_left,
             "jobs": jobs,
             "jobs_ok": sum(1 for j in jobs if j["status"] == "done" and j["tests"] == scale.upload_results),
             "reads": len(reads),
             "read_errors": sum(1 for r in reads if r[2] != 200),
-            "reads_per_second": len(reads) / all_done if all_done else 0.0,
+            "reads_per_second": len(reads) / drained if drained else 0.0,  # readers ran until the queue drained
             "read_p95": percentile(read_s, 95) if read_s else None,
             "read_median": sorted(read_s)[len(read_s) // 2] if read_s else None,
             "upload_p95": percentile([p["seconds"] for p in posted], 95),
@@ -208,14 +225,14 @@ def main() -> None:
         log(f"load: {result['jobs_ok']}/{len(uploads)} jobs done with {scale.upload_results} rows; "
             f"{len(reads)} reads, {result['read_errors']} errors")
     finally:
-        for proc in procs:
+        for proc in procs:  # SIGTERM to the main process: warm shutdown, running tasks finish
             if proc.poll() is None:
-                os.killpg(proc.pid, signal.SIGTERM)
+                proc.send_signal(signal.SIGTERM)
         for proc in procs:
             try:
-                proc.wait(timeout=30)
+                proc.wait(timeout=90)
             except subprocess.TimeoutExpired:
-                os.killpg(proc.pid, signal.SIGKILL)
+                os.killpg(proc.pid, signal.SIGKILL)  # the group this run started (start_new_session)
     result_write(args.out, result)
 
 

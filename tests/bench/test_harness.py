@@ -136,10 +136,10 @@ def test_incremental_and_clustering_checks():
 
 
 def test_load_checks_need_zero_errors_and_every_job_done():
-    data = {"upload_errors": 0, "jobs_ok": 19, "uploads": 20, "read_errors": 0}
+    data = {"upload_errors": 0, "jobs_ok": 19, "uploads": 20, "read_errors": 0, "queue_left": 0}
     facts = {c["check"]: c["met"] for c in report.load_checks(data, expected_rows=2000)}
     assert facts == {"upload answers other than 202": True, "jobs done with 2000 rows": False,
-                     "page read errors": True}
+                     "page read errors": True, "after-build refreshes left in the queue": True}
 
 
 def test_render_shows_target_beside_ratio_and_verdicts():
