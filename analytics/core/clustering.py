@@ -78,14 +78,12 @@ _LABEL_NOISE = frozenset(
 
 def _label_term_useless(term: str, skip: frozenset[str] | set[str]) -> bool:
     """Terms that would not help a person recognise the cause in a label."""
-    return (
-        " " in term
-        or term.startswith("<")
-        or term in skip
-        # test classes and methods name where it failed, not why (the cause page lists them)
-        or term.endswith(("test", "tests"))
-        or term.startswith("test")
-    )
+    return " " in term or term.startswith("<") or term in skip
+
+
+def _names_a_test(term: str) -> bool:
+    """Test classes and methods say where it failed rather than why: used only when nothing better is left."""
+    return term.endswith(("test", "tests")) or term.startswith("test")
 
 
 def build_vectoriser(*, max_features: int | None = 20_000) -> Pipeline:
@@ -494,14 +492,15 @@ class FailureClusterer(BaseEstimator):
             ).index[0]
             weights = centroid[:, :n_words].toarray().ravel()
             skip = {part.lower() for part in re.split(r"[.$]", exception)} | _LABEL_NOISE
-            terms: list[str] = []
-            for index in np.argsort(-weights, kind="stable"):
-                if weights[index] <= 0 or len(terms) == n_terms:
-                    break
-                term = vocabulary[index]
-                if _label_term_useless(term, skip):
-                    continue
-                terms.append(term)
+            ranked = [
+                vocabulary[index]
+                for index in np.argsort(-weights, kind="stable")
+                if weights[index] > 0 and not _label_term_useless(vocabulary[index], skip)
+            ]
+            # Cause words first; test names only fill the label when the cause has too few words of its own
+            # (e.g. a KeyError whose quoted key was normalised away), so such clusters stay tellable apart.
+            terms = [t for t in ranked if not _names_a_test(t)][:n_terms]
+            terms += [t for t in ranked if _names_a_test(t)][: n_terms - len(terms)]
             label = exception + (": " + ", ".join(terms) if terms else "")
             rows.append(
                 {
