@@ -512,11 +512,13 @@ CAUSE_REPORTS: dict[str, tuple[tuple[str, str], ...]] = {
         (
             "Arrival hour one hour off for stays starting on the clock change weekend",
             "Guests arriving on the night the clocks go back see an arrival one hour late in the "
-            "confirmation.",
+            "confirmation. The booking contract test fails the same way: AssertionFailedError expected "
+            "T02:30+01:00 but was T03:30+02:00.",
         ),
         (
             "Harbour-master report lists late-night arrivals an hour early after clock change",
-            "The arrivals list for the clock change night is shifted by one hour on the report.",
+            "The arrivals list for the clock change night is shifted by one hour on the report; the report "
+            "test fails with AssertionError: assert row.slot_start == expected (datetime 3, 30 vs 2, 30).",
         ),
     ),
     "emulator-boot-timeout": (
