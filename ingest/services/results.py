@@ -20,7 +20,16 @@ from django.db.models import Max
 from django.utils import timezone
 
 from ingest.bulk import rows_bulk_insert
-from ingest.models import Build, ImportedReport, ImportJob, Project, StoredFile, TestCase, TestResult
+from ingest.models import (
+    Build,
+    ImportedReport,
+    ImportJob,
+    Project,
+    StoredFile,
+    TestCase,
+    TestResult,
+    week_start,
+)
 from ingest.parsers.junit import JUnitParseError, JUnitReader, ParsedResult
 from ingest.services.components import ComponentRules
 from ingest.storage import raw_file_path, raw_file_store
@@ -186,67 +195,123 @@ RESULT_COLUMNS = (
 )
 
 
+_KEY_LEN = 500  # TestCase.classname / name max_length: keys are truncated as the rows are
+
+
+def _key(p: ParsedResult) -> tuple[str, str]:
+    return (p.classname[:_KEY_LEN], p.name[:_KEY_LEN])
+
+
 class _TestCaseCache:
+    """``(classname, name) → id`` of one project for one job, resolved with one query per batch.
+
+    The look-up goes through the unique index ``(project, classname, name)`` with the pair (PostgreSQL: a join
+    on ``unnest`` of two arrays; SQLite: a ``VALUES`` list); test cases not found are inserted with
+    ``ON CONFLICT DO NOTHING`` (another worker may create the same ones at the same time) and read back.
+    """
+
+    LOOKUP_CHUNK = 5000
+    SQLITE_CHUNK = 400  # 2 parameters per pair + project; stays below SQLite's variable limit everywhere
+
     def __init__(self, project: Project):
         self.project = project
         self.ids: dict[tuple[str, str], int] = {}
-        self.rules = ComponentRules(project)
+        self._rules: ComponentRules | None = None
         self.created = 0
 
+    @property
+    def rules(self) -> ComponentRules:
+        if self._rules is None:  # only needed when a test case is created: no query for known tests
+            self._rules = ComponentRules(self.project)
+        return self._rules
+
+    def _lookup(self, keys: list[tuple[str, str]]) -> None:
+        table = TestCase._meta.db_table
+        with connection.cursor() as cursor:
+            if connection.vendor == "postgresql":
+                for start in range(0, len(keys), self.LOOKUP_CHUNK):
+                    chunk = keys[start : start + self.LOOKUP_CHUNK]
+                    cursor.execute(
+                        f"SELECT t.id, t.classname, t.name FROM {table} t"
+                        " JOIN unnest(%s::text[], %s::text[]) AS k(c, n) ON t.classname = k.c AND t.name = k.n"
+                        " WHERE t.project_id = %s",
+                        [[k[0] for k in chunk], [k[1] for k in chunk], self.project.pk],
+                    )
+                    for tc_id, classname, name in cursor.fetchall():
+                        self.ids[(classname, name)] = tc_id
+            else:
+                for start in range(0, len(keys), self.SQLITE_CHUNK):
+                    chunk = keys[start : start + self.SQLITE_CHUNK]
+                    values = ", ".join(["(%s, %s)"] * len(chunk))
+                    cursor.execute(
+                        f"SELECT id, classname, name FROM {table} WHERE project_id = %s"
+                        f" AND (classname, name) IN (VALUES {values})",
+                        [self.project.pk, *(v for k in chunk for v in k)],
+                    )
+                    for tc_id, classname, name in cursor.fetchall():
+                        self.ids[(classname, name)] = tc_id
+
     def resolve(self, parsed: list[ParsedResult]) -> None:
-        missing = {(p.classname, p.name): p for p in parsed if (p.classname, p.name) not in self.ids}
+        ids = self.ids
+        missing: dict[tuple[str, str], ParsedResult] = {}
+        for p in parsed:
+            key = _key(p)
+            if key not in ids and key not in missing:
+                missing[key] = p
         if not missing:
             return
-        keys = list(missing)
-        for start in range(0, len(keys), 500):
-            chunk = keys[start : start + 500]
-            names = {k[1] for k in chunk}
-            for tc_id, classname, name in TestCase.objects.filter(project=self.project, name__in=names).values_list(
-                "id", "classname", "name"
-            ):
-                if (classname, name) in missing:
-                    self.ids[(classname, name)] = tc_id
-        new = [k for k in keys if k not in self.ids]
-        if new:
-            TestCase.objects.bulk_create(
-                [
-                    TestCase(
-                        project=self.project,
-                        classname=k[0][:500],
-                        name=k[1][:500],
-                        file=missing[k].file[:500],
-                        suite=missing[k].suite[:500],
-                        component_id=self.rules.component_id_for(k[0]),
-                    )
-                    for k in new
-                ],
-                batch_size=1000,
-                ignore_conflicts=True,
-            )
-            self.created += len(new)
-            for start in range(0, len(new), 500):
-                chunk = new[start : start + 500]
-                names = {k[1] for k in chunk}
-                for tc_id, classname, name in TestCase.objects.filter(
-                    project=self.project, name__in=names
-                ).values_list("id", "classname", "name"):
-                    self.ids.setdefault((classname, name), tc_id)
+        self._lookup(list(missing))
+        new = [k for k in missing if k not in ids]
+        if not new:
+            return
+        TestCase.objects.bulk_create(
+            [
+                TestCase(
+                    project=self.project,
+                    classname=k[0],
+                    name=k[1],
+                    file=missing[k].file[:500],
+                    suite=missing[k].suite[:500],
+                    component_id=self.rules.component_id_for(k[0]),
+                )
+                for k in new
+            ],
+            batch_size=1000,
+            ignore_conflicts=True,
+        )
+        self.created += len(new)
+        self._lookup(new)
 
 
-def _build_get_or_create(project: Project, meta: BuildMeta, fallback_started: datetime | None) -> Build:
-    build = Build.objects.filter(project=project, external_id=meta.build).first()
-    if build is not None:
-        return build
+def _build_get_or_create(project: Project, meta: BuildMeta, fallback_started: datetime | None) -> tuple[Build, bool]:
+    """The build row (and whether it was created here): one INSERT … ON CONFLICT DO NOTHING RETURNING when new."""
+    started = meta.started_at() or fallback_started or timezone.now()
     build = Build(
         project=project,
         external_id=meta.build[:200],
         commit=meta.commit[:80],
         branch=meta.branch[:250],
         ci_job=meta.ci_job[:250],
-        started_at=meta.started_at() or fallback_started or timezone.now(),
+        started_at=started,
+        week=week_start(started),
+        created_at=timezone.now(),
     )
-    build.save()
-    return build
+    fields = ("project", "external_id", "commit", "branch", "ci_job", "started_at", "week", "created_at")
+    db_fields = [Build._meta.get_field(f) for f in fields]
+    values = [f.get_db_prep_save(getattr(build, f.attname), connection) for f in db_fields]
+    table = Build._meta.db_table
+    cols = ", ".join(connection.ops.quote_name(f.column) for f in db_fields)
+    with connection.cursor() as cursor:
+        cursor.execute(
+            f"INSERT INTO {table} ({cols}) VALUES ({', '.join(['%s'] * len(values))})"
+            " ON CONFLICT (project_id, external_id) DO NOTHING RETURNING id",
+            values,
+        )
+        row = cursor.fetchone()
+    if row is not None:
+        build.id = row[0]
+        return build, True
+    return Build.objects.get(project=project, external_id=meta.build[:200]), False
 
 
 def results_job_run(*, job: ImportJob, progress: bool = True, refresh: bool = True) -> ImportCounts:
@@ -269,8 +334,8 @@ def results_job_run(*, job: ImportJob, progress: bool = True, refresh: bool = Tr
         total_bytes = max(1, sum(s.size for s in stored_files))
         done_bytes = 0
         with transaction.atomic():
-            build = _build_get_or_create(job.project, meta, None)
-            writer = _BuildWriter(job=job, build=build, counts=counts)
+            build, created = _build_get_or_create(job.project, meta, None)
+            writer = _BuildWriter(job=job, build=build, counts=counts, existing=not created)
             for stored in stored_files:
                 for display, sha, stream in _reports_in(stored):
                     writer.report(display, sha, stream)
@@ -284,7 +349,7 @@ def results_job_run(*, job: ImportJob, progress: bool = True, refresh: bool = Tr
             job.warnings = counts.warnings
             job.progress = 1.0
             job.finished_at = timezone.now()
-            job.save()
+            job.save(update_fields=["build", "status", "counts", "warnings", "progress", "finished_at"])
             if writer.new_results and refresh:
                 from ingest.hooks import after_results_import
 
@@ -317,25 +382,34 @@ def _job_fail(job: ImportJob, message: str) -> None:
 
 
 class _BuildWriter:
-    def __init__(self, *, job: ImportJob, build: Build, counts: ImportCounts):
+    def __init__(self, *, job: ImportJob, build: Build, counts: ImportCounts, existing: bool = True):
         self.job = job
         self.build = build
         self.project = job.project
         self.counts = counts
         self.cases = _TestCaseCache(self.project)
-        self.max_attempt: dict[int, int] = dict(
-            TestResult.objects.filter(build=build)
-            .values("test_case_id")
-            .annotate(m=Max("attempt"))
-            .values_list("test_case_id", "m")
-        )
+        # A build created by this job has no results and no imported reports yet: skip both queries.
+        self.max_attempt: dict[int, int] = {}
+        self.known_reports: set[str] = set()
+        if existing:
+            self.max_attempt = dict(
+                TestResult.objects.filter(build=build)
+                .values("test_case_id")
+                .annotate(m=Max("attempt"))
+                .values_list("test_case_id", "m")
+            )
+            self.known_reports = set(
+                ImportedReport.objects.filter(project=self.project, build=build).values_list("sha256", flat=True)
+            )
+        self.imported: list[ImportedReport] = []
         self.new_results = 0
         self.earliest_ts: datetime | None = None
 
     def report(self, display: str, sha: str, stream: BinaryIO) -> None:
-        if ImportedReport.objects.filter(project=self.project, build=self.build, sha256=sha).exists():
+        if sha in self.known_reports:
             self.counts.reports_already_imported += 1
             return
+        self.known_reports.add(sha)
         reader = JUnitReader(stream, filename=display)
         file_max: dict[int, int] = {}
         base = dict(self.max_attempt)
@@ -352,16 +426,20 @@ class _BuildWriter:
             self.max_attempt[tc_id] = max(self.max_attempt.get(tc_id, 0), attempt)
         self.counts.warnings.extend(reader.warnings)
         self.counts.reports += 1
-        ImportedReport.objects.create(
-            project=self.project, build=self.build, sha256=sha, original_name=display[:500], job=self.job,
-            results=written,
+        # Written in one INSERT by finish(), inside the same transaction.
+        self.imported.append(
+            ImportedReport(
+                project=self.project, build=self.build, sha256=sha, original_name=display[:500], job=self.job,
+                results=written,
+            )
         )
 
     def _write(self, batch: list[ParsedResult], base: dict[int, int], file_max: dict[int, int]) -> int:
         self.cases.resolve(batch)
         rows = []
+        ids = self.cases.ids
         for p in batch:
-            tc_id = self.cases.ids[(p.classname, p.name)]
+            tc_id = ids[_key(p)]
             attempt = base.get(tc_id, 0) + p.attempt
             if attempt > file_max.get(tc_id, 0):
                 file_max[tc_id] = attempt
@@ -378,6 +456,8 @@ class _BuildWriter:
 
     def finish(self) -> None:
         self.counts.new_test_cases = self.cases.created
+        if self.imported:
+            ImportedReport.objects.bulk_create(self.imported)
         if self.new_results:
             rollup_add_build(build=self.build)
 
