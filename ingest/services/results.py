@@ -264,23 +264,45 @@ class _TestCaseCache:
         new = [k for k in missing if k not in ids]
         if not new:
             return
-        TestCase.objects.bulk_create(
-            [
-                TestCase(
-                    project=self.project,
-                    classname=k[0],
-                    name=k[1],
-                    file=missing[k].file[:500],
-                    suite=missing[k].suite[:500],
-                    component_id=self.rules.component_id_for(k[0]),
-                )
-                for k in new
-            ],
-            batch_size=1000,
-            ignore_conflicts=True,
-        )
+        self._create(new, missing)
         self.created += len(new)
-        self._lookup(new)
+        still = [k for k in new if k not in ids]
+        if still:  # created meanwhile by another worker (ON CONFLICT DO NOTHING returned no id): read them
+            self._lookup(still)
+
+    def _create(self, keys: list[tuple[str, str]], parsed: dict[tuple[str, str], ParsedResult]) -> None:
+        """INSERT … ON CONFLICT DO NOTHING RETURNING: one statement creates the rows and gives their ids."""
+        table = TestCase._meta.db_table
+        now = timezone.now()
+        rules = self.rules
+        rows = [
+            (k[0], k[1], parsed[k].file[:500], parsed[k].suite[:500], rules.component_id_for(k[0])) for k in keys
+        ]
+        head = f"INSERT INTO {table} (project_id, classname, name, file, suite, component_id, component_locked, first_seen)"
+        tail = " ON CONFLICT (project_id, classname, name) DO NOTHING RETURNING id, classname, name"
+        with connection.cursor() as cursor:
+            if connection.vendor == "postgresql":
+                for start in range(0, len(rows), self.LOOKUP_CHUNK):
+                    chunk = rows[start : start + self.LOOKUP_CHUNK]
+                    cursor.execute(
+                        head + " SELECT %s, c, n, f, s, comp, false, %s"
+                        " FROM unnest(%s::text[], %s::text[], %s::text[], %s::text[], %s::bigint[]) AS k(c, n, f, s, comp)"
+                        + tail,
+                        [self.project.pk, now, *([r[i] for r in chunk] for i in range(5))],
+                    )
+                    for tc_id, classname, name in cursor.fetchall():
+                        self.ids[(classname, name)] = tc_id
+            else:
+                now_db = TestCase._meta.get_field("first_seen").get_db_prep_save(now, connection)
+                per = 100  # 8 parameters a row
+                for start in range(0, len(rows), per):
+                    chunk = rows[start : start + per]
+                    values = ", ".join(["(%s, %s, %s, %s, %s, %s, %s, %s)"] * len(chunk))
+                    params = [v for r in chunk for v in (self.project.pk, *r, False, now_db)]
+                    # "WHERE true" lets SQLite parse ON CONFLICT after a VALUES list unambiguously.
+                    cursor.execute(head + f" SELECT * FROM (VALUES {values}) WHERE true" + tail, params)
+                    for tc_id, classname, name in cursor.fetchall():
+                        self.ids[(classname, name)] = tc_id
 
 
 def _build_get_or_create(project: Project, meta: BuildMeta, fallback_started: datetime | None) -> tuple[Build, bool]:
