@@ -117,8 +117,9 @@ WARN_NESTED_TESTCASE = "{filename}, line {line}: a testcase inside another testc
 WARN_MORE = "{filename}: {count} more warning(s) not shown"
 
 _TOTAL_KEYS = ("tests", "failures", "errors", "skipped")
-_OUTCOME_TOTALS = {"failed": "failures", "error": "errors", "skipped": "skipped"}
 _SUITE_TAGS = frozenset({"testsuite", "testsuites"})
+# Finished testcases are cleared at once; they and their preceding siblings are detached every this many.
+_RELEASE_EVERY = 64
 _RESULT_TAGS = frozenset({"failure", "error"})
 _BEFORE_TAGS = {"flakyFailure": "failed", "flakyError": "error"}
 _AFTER_TAGS = {"rerunFailure": "failed", "rerunError": "error"}
@@ -170,9 +171,13 @@ class JUnitParseError(ValueError):
         super().__init__(text)
 
 
-@dataclass(frozen=True, slots=True)
+@dataclass(frozen=True)
 class ParsedResult:
-    """One attempt of one test, as read from a JUnit-XML report."""
+    """One attempt of one test, as read from a JUnit-XML report.
+
+    Not slotted: the reader builds instances through :func:`_parsed_new`, which sets the instance
+    dictionary in one step instead of 15 frozen-attribute writes (the dominant per-result cost).
+    """
 
     suite: str
     classname: str
@@ -189,6 +194,53 @@ class ParsedResult:
     truncated: tuple[tuple[str, int], ...]
     timestamp: datetime | None
     properties: tuple[tuple[str, str], ...]
+
+
+_object_new = object.__new__
+_object_setattr = object.__setattr__
+
+
+def _parsed_new(
+    suite: str,
+    classname: str,
+    name: str,
+    file: str,
+    outcome: str,
+    duration: float | None,
+    attempt: int,
+    failure_type: str,
+    message: str,
+    details: str,
+    system_out: str,
+    system_err: str,
+    truncated: tuple[tuple[str, int], ...],
+    timestamp: datetime | None,
+    properties: tuple[tuple[str, str], ...],
+) -> ParsedResult:
+    """Build a :class:`ParsedResult` equal to ``ParsedResult(...)`` with the same arguments, faster."""
+    result = _object_new(ParsedResult)
+    _object_setattr(
+        result,
+        "__dict__",
+        {
+            "suite": suite,
+            "classname": classname,
+            "name": name,
+            "file": file,
+            "outcome": outcome,
+            "duration": duration,
+            "attempt": attempt,
+            "failure_type": failure_type,
+            "message": message,
+            "details": details,
+            "system_out": system_out,
+            "system_err": system_err,
+            "truncated": truncated,
+            "timestamp": timestamp,
+            "properties": properties,
+        },
+    )
+    return result
 
 
 def junit_time_parse(value: str | None) -> float | None:
@@ -369,15 +421,49 @@ class _ReplayStream:
 # ---------------------------------------------------------------------------------------------------------
 
 
-@dataclass
+# Indexes into _Suite.counts: per-element totals, then per-attempt totals (see the module notes).
+_E_TESTS, _E_FAILURES, _E_ERRORS, _E_SKIPPED, _A_TESTS, _A_FAILURES, _A_ERRORS, _A_SKIPPED = range(8)
+_A_OUTCOME = {"failed": _A_FAILURES, "error": _A_ERRORS, "skipped": _A_SKIPPED}
+
+
+@dataclass(slots=True)
 class _Suite:
+    """An open suite. Counts cover the testcases read directly in it; a closing suite adds its counts to
+    its parent, so each testcase updates one suite only."""
+
     kind: str
     name: str
     line: int | None
     timestamp: datetime | None
     declared: dict[str, int]
-    per_element: Counter[str] = field(default_factory=Counter)
-    per_attempt: Counter[str] = field(default_factory=Counter)
+    result_name: str
+    # Childless passed testcases (one element, one passed attempt), counted apart for the fast path.
+    plain: int = 0
+    counts: list[int] = field(default_factory=lambda: [0] * 8)
+
+    def per_element(self) -> dict[str, int]:
+        c = self.counts
+        return {
+            "tests": c[_E_TESTS] + self.plain,
+            "failures": c[_E_FAILURES],
+            "errors": c[_E_ERRORS],
+            "skipped": c[_E_SKIPPED],
+        }
+
+    def per_attempt(self) -> dict[str, int]:
+        c = self.counts
+        return {
+            "tests": c[_A_TESTS] + self.plain,
+            "failures": c[_A_FAILURES],
+            "errors": c[_A_ERRORS],
+            "skipped": c[_A_SKIPPED],
+        }
+
+    def add_to(self, parent: _Suite) -> None:
+        parent.plain += self.plain
+        totals = parent.counts
+        for i, number in enumerate(self.counts):
+            totals[i] += number
 
 
 @dataclass
@@ -438,16 +524,7 @@ class JUnitReader:
     # -- public ------------------------------------------------------------------------------------------
 
     def __iter__(self) -> Iterator[ParsedResult]:
-        source = self.source
-        if isinstance(source, (str, os.PathLike)):
-            name = self.filename or os.fspath(source)
-            with open(source, "rb") as handle:
-                yield from self._parse(handle, name)
-        elif isinstance(source, (bytes, bytearray, memoryview)):
-            yield from self._parse(io.BytesIO(bytes(source)), self.filename or "<bytes>")
-        else:
-            name = self.filename or str(getattr(source, "name", "") or "<stream>")
-            yield from self._parse(source, name)
+        return self._parse()
 
     # -- internals ---------------------------------------------------------------------------------------
 
@@ -488,60 +565,164 @@ class JUnitReader:
         reason = ERR_TRUNCATED if cut_off else ERR_MALFORMED
         return JUnitParseError(reason, filename=filename, line=line or None, detail=detail)
 
-    def _parse(self, raw: BinaryIO, filename: str) -> Iterator[ParsedResult]:
-        self.warnings = []
-        self.suite_count = 0
-        self.declared_totals = {}
-        self.parsed_totals = dict.fromkeys(_TOTAL_KEYS, 0)
-        stream = self._open_checked(raw, filename)
-        etree.clear_error_log()
-        events = etree.iterparse(
-            stream,
-            events=("start", "end"),
-            resolve_entities=False,
-            no_network=True,
-            load_dtd=False,
-            dtd_validation=False,
-            huge_tree=True,
-            remove_comments=True,
-            remove_pis=True,
-            recover=False,
-        )
-        state = _ParseState(filename=filename)
+    def _parse(self) -> Iterator[ParsedResult]:
+        """Open the source and run the event loop, all in one generator (each extra generator layer costs
+        a delegation per result); the childless passed testcase, the common case, is handled inline."""
+        source = self.source
+        raw: BinaryIO
+        if isinstance(source, (str, os.PathLike)):
+            filename = self.filename or os.fspath(source)
+            raw = open(source, "rb")  # noqa: SIM115 - closed in the finally below
+            owned = True
+        elif isinstance(source, (bytes, bytearray, memoryview)):
+            filename = self.filename or "<bytes>"
+            raw, owned = io.BytesIO(bytes(source)), False
+        else:
+            filename = self.filename or str(getattr(source, "name", "") or "<stream>")
+            raw, owned = source, False
         try:
-            for event, elem in events:
-                if event == "start":
-                    self._on_start(elem, state, filename)
-                else:
-                    yield from self._on_end(elem, state, filename)
-        except etree.XMLSyntaxError as exc:
-            raise self._syntax_error(exc, stream, filename) from None
-        yield from state.flush()
-        if state.bad_times:
-            line, value = state.first_bad_time
-            self._warn(WARN_TIME.format(filename=filename, count=state.bad_times, line=line, value=value))
-        if len(self.warnings) > MAX_WARNINGS:
-            hidden = len(self.warnings) - MAX_WARNINGS
-            self.warnings = self.warnings[:MAX_WARNINGS] + [WARN_MORE.format(filename=filename, count=hidden)]
+            self.warnings = []
+            self.suite_count = 0
+            self.declared_totals = {}
+            self.parsed_totals = dict.fromkeys(_TOTAL_KEYS, 0)
+            stream = self._open_checked(raw, filename)
+            etree.clear_error_log()
+            events = etree.iterparse(
+                stream,
+                events=("start", "end"),
+                resolve_entities=False,
+                no_network=True,
+                load_dtd=False,
+                dtd_validation=False,
+                huge_tree=True,
+                remove_comments=True,
+                remove_pis=True,
+                recover=False,
+            )
+            state = _ParseState(filename=filename)
+            suites = state.suites
+            attempts = state.attempts
+            intern = sys.intern
+            new = _object_new
+            setattr_ = _object_setattr
+            testcase_depth = 0
+            released = 0
+            local_names: dict[object, str] = {}
+            try:
+                for event, elem in events:
+                    tag = elem.tag
+                    if tag != "testcase":
+                        local = local_names.get(tag)
+                        if local is None:
+                            local = local_names[tag] = _local(tag)
+                    else:
+                        local = tag
+                    if event == "end":
+                        if local == "testcase":
+                            testcase_depth -= 1
+                            if testcase_depth:
+                                self._warn(WARN_NESTED_TESTCASE.format(filename=filename, line=elem.sourceline))
+                                continue
+                            if len(elem):
+                                yield from self._testcase(elem, state, filename)
+                            else:
+                                # Fast path: no children, so one passed attempt with nothing to cap; it
+                                # never absorbs a teardown error, so it need not wait in state.pending.
+                                get = elem.get
+                                classname = intern(get("classname", ""))
+                                name = get("name", "")
+                                raw_time = get("time")
+                                if raw_time is None:
+                                    duration = None
+                                else:
+                                    try:
+                                        duration = float(raw_time)
+                                    except ValueError:
+                                        duration = None
+                                    if duration is None or not 0.0 <= duration < math.inf:
+                                        duration = junit_time_parse(raw_time)
+                                        if duration is None and raw_time.strip():
+                                            state.note_bad_time(elem.sourceline, raw_time)
+                                suite = suites[-1]
+                                suite.plain += 1
+                                key = (classname, name)
+                                number = attempts.get(key, 0) + 1
+                                attempts[key] = number
+                                if state.pending:
+                                    yield from state.flush()
+                                # Same as ParsedResult(...) with these values (see _parsed_new), inlined.
+                                result = new(ParsedResult)
+                                setattr_(
+                                    result,
+                                    "__dict__",
+                                    {
+                                        "suite": suite.result_name,
+                                        "classname": classname,
+                                        "name": name,
+                                        "file": get("file", ""),
+                                        "outcome": "passed",
+                                        "duration": duration,
+                                        "attempt": number,
+                                        "failure_type": "",
+                                        "message": "",
+                                        "details": "",
+                                        "system_out": "",
+                                        "system_err": "",
+                                        "truncated": (),
+                                        "timestamp": suite.timestamp,
+                                        "properties": (),
+                                    },
+                                )
+                                yield result
+                            elem.clear(keep_tail=False)
+                            released += 1
+                            if released >= _RELEASE_EVERY:
+                                released = 0
+                                _release(elem)
+                        elif testcase_depth or local not in _SUITE_TAGS:
+                            # Inside a testcase (read when it ends), or suite-level properties, output and
+                            # unknown elements (not attached; detached with the siblings of the next released
+                            # element, or with their suite).
+                            continue
+                        else:
+                            suite = suites.pop()
+                            self._suite_check(suite, filename)
+                            if suites:
+                                suite.add_to(suites[-1])
+                            else:
+                                self.parsed_totals = suite.per_element()
+                            _release(elem)
+                    elif local == "testcase":
+                        testcase_depth += 1
+                        if not suites:
+                            self._root_check(elem, local, filename)
+                    elif testcase_depth == 0:
+                        if not suites:
+                            self._root_check(elem, local, filename)
+                        if local in _SUITE_TAGS:
+                            self._suite_open(elem, local, state, filename)
+            except etree.XMLSyntaxError as exc:
+                raise self._syntax_error(exc, stream, filename) from None
+            yield from state.flush()
+            if state.bad_times:
+                line, value = state.first_bad_time
+                self._warn(WARN_TIME.format(filename=filename, count=state.bad_times, line=line, value=value))
+            if len(self.warnings) > MAX_WARNINGS:
+                hidden = len(self.warnings) - MAX_WARNINGS
+                self.warnings = self.warnings[:MAX_WARNINGS] + [
+                    WARN_MORE.format(filename=filename, count=hidden)
+                ]
+        finally:
+            if owned:
+                raw.close()
 
-    def _on_start(self, elem: etree._Element, state: _ParseState, filename: str) -> None:
-        tag = _local(elem.tag)
-        if state.depth == 0:
-            docinfo = elem.getroottree().docinfo
-            if docinfo.doctype or docinfo.internalDTD is not None:
-                raise JUnitParseError(ERR_DOCTYPE, filename=filename, line=elem.sourceline)
-            if tag not in _SUITE_TAGS:
-                raise JUnitParseError(
-                    ERR_ROOT,
-                    filename=filename,
-                    line=elem.sourceline,
-                    detail=f"found <{tag}>",
-                )
-        state.depth += 1
-        if tag in _SUITE_TAGS and state.testcase_depth == 0:
-            self._suite_open(elem, tag, state, filename)
-        elif tag == "testcase":
-            state.testcase_depth += 1
+    def _root_check(self, elem: etree._Element, tag: str, filename: str) -> None:
+        """Called on a start event while no suite is open, which only the root element can cause."""
+        docinfo = elem.getroottree().docinfo
+        if docinfo.doctype or docinfo.internalDTD is not None:
+            raise JUnitParseError(ERR_DOCTYPE, filename=filename, line=elem.sourceline)
+        if tag not in _SUITE_TAGS:
+            raise JUnitParseError(ERR_ROOT, filename=filename, line=elem.sourceline, detail=f"found <{tag}>")
 
     def _suite_open(self, elem: etree._Element, tag: str, state: _ParseState, filename: str) -> None:
         name = elem.get("name", "")
@@ -581,36 +762,27 @@ class JUnitReader:
                     self.declared_totals[key] = number
                 else:
                     self.declared_totals[key] = self.declared_totals.get(key, 0) + number
-        state.suites.append(_Suite(kind=tag, name=name, line=line, timestamp=timestamp, declared=declared))
-
-    def _on_end(self, elem: etree._Element, state: _ParseState, filename: str) -> Iterator[ParsedResult]:
-        tag = _local(elem.tag)
-        state.depth -= 1
-        if tag == "testcase":
-            state.testcase_depth -= 1
-            if state.testcase_depth > 0:
-                self._warn(WARN_NESTED_TESTCASE.format(filename=filename, line=elem.sourceline))
-                return
-            yield from self._testcase(elem, state, filename)
-            _release(elem)
-        elif state.testcase_depth > 0:
-            return
-        elif tag in _SUITE_TAGS:
-            suite = state.suites.pop()
-            self._suite_check(suite, filename)
-            _release(elem)
-        elif state.depth <= len(state.suites):
-            # Suite-level properties, system-out, system-err and anything unknown: not attached.
-            _release(elem)
+        outer_name = state.suites[-1].result_name if state.suites else ""
+        state.suites.append(
+            _Suite(
+                kind=tag,
+                name=name,
+                line=line,
+                timestamp=timestamp,
+                declared=declared,
+                result_name=name if tag == "testsuite" else outer_name,
+            )
+        )
 
     def _suite_check(self, suite: _Suite, filename: str) -> None:
         if not suite.declared:
             return
-        for counted in (suite.per_element, suite.per_attempt):
-            if all(counted.get(key, 0) == number for key, number in suite.declared.items()):
+        per_element = suite.per_element()
+        for counted in (per_element, suite.per_attempt()):
+            if all(counted[key] == number for key, number in suite.declared.items()):
                 return
         declared = ", ".join(f"{key}={number}" for key, number in suite.declared.items())
-        parsed = ", ".join(f"{key}={suite.per_element.get(key, 0)}" for key in suite.declared)
+        parsed = ", ".join(f"{key}={per_element[key]}" for key in suite.declared)
         self._warn(
             WARN_TOTALS.format(
                 filename=filename,
@@ -694,23 +866,20 @@ class JUnitReader:
         has_failure = any(_local(r.tag) == "failure" for r in results)
         has_error = any(_local(r.tag) == "error" for r in results)
         attempts = [*before, main, *after]
-        for suite in state.suites:
-            suite.per_element["tests"] += 1
-            suite.per_element["failures"] += has_failure
-            suite.per_element["errors"] += has_error
-            suite.per_element["skipped"] += skipped is not None and not results
-            suite.per_attempt["tests"] += len(attempts)
-            for attempt in attempts:
-                total_key = _OUTCOME_TOTALS.get(attempt.outcome)
-                if total_key:
-                    suite.per_attempt[total_key] += 1
-        self.parsed_totals["tests"] += 1
-        self.parsed_totals["failures"] += has_failure
-        self.parsed_totals["errors"] += has_error
-        self.parsed_totals["skipped"] += skipped is not None and not results
+        innermost = state.suites[-1]
+        counts = innermost.counts
+        counts[_E_TESTS] += 1
+        counts[_E_FAILURES] += has_failure
+        counts[_E_ERRORS] += has_error
+        counts[_E_SKIPPED] += skipped is not None and not results
+        counts[_A_TESTS] += len(attempts)
+        for attempt in attempts:
+            index = _A_OUTCOME.get(attempt.outcome)
+            if index is not None:
+                counts[index] += 1
 
-        suite_name = next((s.name for s in reversed(state.suites) if s.kind == "testsuite"), "")
-        timestamp = state.suites[-1].timestamp if state.suites else None
+        suite_name = innermost.result_name
+        timestamp = innermost.timestamp
         key = (classname, name)
         if (
             state.pending
@@ -774,8 +943,6 @@ class JUnitReader:
 @dataclass
 class _ParseState:
     filename: str
-    depth: int = 0
-    testcase_depth: int = 0
     suites: list[_Suite] = field(default_factory=list)
     attempts: Counter[tuple[str, str]] = field(default_factory=Counter)
     pending: list[ParsedResult] = field(default_factory=list)
@@ -805,22 +972,22 @@ def _result(
     properties: tuple[tuple[str, str], ...],
 ) -> ParsedResult:
     truncated: list[tuple[str, int]] = []
-    return ParsedResult(
-        suite=suite,
-        classname=classname,
-        name=name,
-        file=file,
-        outcome=attempt.outcome,
-        duration=attempt.duration,
-        attempt=number,
-        failure_type=_cap(attempt.failure_type, MESSAGE_CAP, "failure_type", truncated),
-        message=_cap(attempt.message, MESSAGE_CAP, "message", truncated),
-        details=_cap(attempt.details, DETAILS_CAP, "details", truncated),
-        system_out=_cap(attempt.system_out, OUTPUT_CAP, "system_out", truncated),
-        system_err=_cap(attempt.system_err, OUTPUT_CAP, "system_err", truncated),
-        truncated=tuple(truncated),
-        timestamp=timestamp,
-        properties=properties,
+    return _parsed_new(
+        suite,
+        classname,
+        name,
+        file,
+        attempt.outcome,
+        attempt.duration,
+        number,
+        _cap(attempt.failure_type, MESSAGE_CAP, "failure_type", truncated),
+        _cap(attempt.message, MESSAGE_CAP, "message", truncated),
+        _cap(attempt.details, DETAILS_CAP, "details", truncated),
+        _cap(attempt.system_out, OUTPUT_CAP, "system_out", truncated),
+        _cap(attempt.system_err, OUTPUT_CAP, "system_err", truncated),
+        tuple(truncated),
+        timestamp,
+        properties,
     )
 
 
