@@ -703,6 +703,10 @@ class JUnitReader:
                             self._suite_open(elem, local, state, filename)
             except etree.XMLSyntaxError as exc:
                 raise self._syntax_error(exc, stream, filename) from None
+            finally:
+                if suites:
+                    # Stopped early (bad XML, or the caller stopped): count what was read so far.
+                    self.parsed_totals = _totals_open(suites)
             yield from state.flush()
             if state.bad_times:
                 line, value = state.first_bad_time
@@ -958,6 +962,15 @@ class _ParseState:
     def flush(self) -> Iterator[ParsedResult]:
         pending, self.pending, self.pending_key = self.pending, [], None
         yield from pending
+
+
+def _totals_open(suites: list[_Suite]) -> dict[str, int]:
+    """Per-element totals of the testcases read so far beneath still-open suites."""
+    totals = dict.fromkeys(_TOTAL_KEYS, 0)
+    for suite in suites:
+        for key, number in suite.per_element().items():
+            totals[key] += number
+    return totals
 
 
 def _result(
