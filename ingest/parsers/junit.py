@@ -126,6 +126,7 @@ _AFTER_TAGS = {"rerunFailure": "failed", "rerunError": "error"}
 _PYTEST_TEARDOWN_PREFIX = "failed on teardown with "
 _READ_CHUNK = 64 * 1024
 _PROLOG_LIMIT = 1024 * 1024
+_PROLOG_PEEK = 4096
 # libxml2 error kinds that mean a real mistake, even when they occur on the last line of the file.
 _NOT_TRUNCATION = frozenset(
     {
@@ -537,10 +538,17 @@ class JUnitReader:
             chunk = raw.read(_READ_CHUNK)
             at_eof = not chunk
             head += chunk
-            if not head.strip() and at_eof:
+            if at_eof and not head.strip():
                 raise JUnitParseError(ERR_EMPTY, filename=filename)
-            text = _sniff_decode(head)
-            verdict, offset = _prolog_scan(text, at_eof=at_eof)
+            verdict = _MORE
+            if len(head) > _PROLOG_PEEK:
+                # The prolog is almost always short: decide on a prefix first (the scan only decides on
+                # what it has seen, so a decision there is the one the whole head would give).
+                text = _sniff_decode(head[:_PROLOG_PEEK])
+                verdict, offset = _prolog_scan(text, at_eof=False)
+            if verdict == _MORE:
+                text = _sniff_decode(head)
+                verdict, offset = _prolog_scan(text, at_eof=at_eof)
             line = text.count("\n", 0, offset) + 1
             if verdict == _DOCTYPE:
                 raise JUnitParseError(ERR_DOCTYPE, filename=filename, line=line)
