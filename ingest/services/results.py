@@ -6,6 +6,7 @@ import hashlib
 import io
 import json
 import logging
+import threading
 import unicodedata
 import zipfile
 from collections.abc import Iterable, Iterator
@@ -15,7 +16,7 @@ from pathlib import Path
 from typing import BinaryIO
 
 from django.core.cache import cache
-from django.db import connection, transaction
+from django.db import IntegrityError, connection, transaction
 from django.db.models import Max
 from django.utils import timezone
 
@@ -202,6 +203,47 @@ def _key(p: ParsedResult) -> tuple[str, str]:
     return (p.classname[:_KEY_LEN], p.name[:_KEY_LEN])
 
 
+# Test-case ids kept between jobs of one process (a worker imports build after build of the same project).
+# Test cases are never renamed, so a cached id stays right while its row exists; rows are filled in only
+# after the job's transaction committed. A job checks one cached row before trusting the rest (a wiped
+# table shows there), and a job that fails on a foreign key after using cached ids is retried once
+# without them. A miss always goes to the database (and INSERT … ON CONFLICT), so test cases created by
+# other processes are found.
+_PROCESS_IDS: dict[tuple, dict[tuple[str, str], int]] = {}
+_PROCESS_IDS_LOCK = threading.Lock()
+PROCESS_IDS_MAX_PROJECTS = 16
+PROCESS_IDS_MAX_KEYS = 500_000  # per project; about 100 MB at the limit
+
+
+def _process_ids_key(project_id: int) -> tuple:
+    return (connection.alias, str(connection.settings_dict.get("NAME")), project_id)
+
+
+def testcase_ids_forget(*, project_id: int | None = None) -> None:
+    """Drop the test-case ids this process keeps (of one project, or all).
+
+    Call it after deleting or truncating test cases by other means than the app (e.g. a benchmark that
+    empties the tables between runs); ingest also notices a wiped table by itself.
+    """
+    with _PROCESS_IDS_LOCK:
+        if project_id is None:
+            _PROCESS_IDS.clear()
+        else:
+            for key in [k for k in _PROCESS_IDS if k[2] == project_id]:
+                del _PROCESS_IDS[key]
+
+
+def _process_ids_publish(key: tuple, ids: dict[tuple[str, str], int]) -> None:
+    with _PROCESS_IDS_LOCK:
+        known = _PROCESS_IDS.pop(key, None)
+        if known is None or len(known) + len(ids) > PROCESS_IDS_MAX_KEYS:
+            known = {}
+        known.update(ids)
+        _PROCESS_IDS[key] = known  # most recently used last
+        while len(_PROCESS_IDS) > PROCESS_IDS_MAX_PROJECTS:
+            del _PROCESS_IDS[next(iter(_PROCESS_IDS))]
+
+
 class _TestCaseCache:
     """``(classname, name) → id`` of one project for one job, resolved with one query per batch.
 
@@ -218,6 +260,33 @@ class _TestCaseCache:
         self.ids: dict[tuple[str, str], int] = {}
         self._rules: ComponentRules | None = None
         self.created = 0
+        self.hits = 0  # ids taken from the process-level cache
+        self._shared_key = _process_ids_key(project.pk)
+        self._shared: dict[tuple[str, str], int] | None = None  # checked on first use
+
+    def _shared_ids(self) -> dict[tuple[str, str], int]:
+        if self._shared is None:
+            shared = _PROCESS_IDS.get(self._shared_key) or {}
+            if shared:
+                # The oldest and the newest kept row must still be there, unchanged (one query by primary key).
+                samples = {next(iter(shared.items())), next(reversed(shared.items()))}
+                with connection.cursor() as cursor:
+                    cursor.execute(
+                        f"SELECT id, classname, name FROM {TestCase._meta.db_table}"
+                        f" WHERE project_id = %s AND id IN ({', '.join(['%s'] * len(samples))})",
+                        [self.project.pk, *(tc_id for _key, tc_id in samples)],
+                    )
+                    found = {((classname, name), tc_id) for tc_id, classname, name in cursor.fetchall()}
+                if found != samples:  # the table was emptied or rows deleted: start again
+                    testcase_ids_forget(project_id=self.project.pk)
+                    shared = {}
+            self._shared = shared
+        return self._shared
+
+    def publish_on_commit(self) -> None:
+        if self.ids:
+            key, ids = self._shared_key, self.ids
+            transaction.on_commit(lambda: _process_ids_publish(key, ids))
 
     @property
     def rules(self) -> ComponentRules:
@@ -254,11 +323,17 @@ class _TestCaseCache:
 
     def resolve(self, parsed: list[ParsedResult]) -> None:
         ids = self.ids
+        shared = self._shared_ids()
         missing: dict[tuple[str, str], ParsedResult] = {}
         for p in parsed:
             key = _key(p)
             if key not in ids and key not in missing:
-                missing[key] = p
+                tc_id = shared.get(key)
+                if tc_id is None:
+                    missing[key] = p
+                else:
+                    ids[key] = tc_id
+                    self.hits += 1
         if not missing:
             return
         self._lookup(list(missing))
@@ -350,33 +425,18 @@ def results_job_run(*, job: ImportJob, progress: bool = True, refresh: bool = Tr
     job.error = ""
     job.progress = 0.0
     job.save(update_fields=["status", "started_at", "attempts", "error", "progress"])
-    counts = ImportCounts()
     try:
         meta = BuildMeta.from_dict(job.parameters)
         stored_files = list(job.files.all())
-        total_bytes = max(1, sum(s.size for s in stored_files))
-        done_bytes = 0
-        with transaction.atomic():
-            build, created = _build_get_or_create(job.project, meta, None)
-            writer = _BuildWriter(job=job, build=build, counts=counts, existing=not created)
-            for stored in stored_files:
-                for display, sha, stream in _reports_in(stored):
-                    writer.report(display, sha, stream)
-                done_bytes += stored.size
-                if progress:
-                    _progress_save(job, done_bytes / total_bytes)
-            writer.finish()
-            job.build = build
-            job.status = ImportJob.Status.DONE
-            job.counts = counts.as_dict()
-            job.warnings = counts.warnings
-            job.progress = 1.0
-            job.finished_at = timezone.now()
-            job.save(update_fields=["build", "status", "counts", "warnings", "progress", "finished_at"])
-            if writer.new_results and refresh:
-                from ingest.hooks import after_results_import
-
-                transaction.on_commit(lambda: after_results_import(project_id=job.project_id, build_id=build.id))
+        try:
+            counts = _job_write(job=job, meta=meta, stored_files=stored_files, progress=progress, refresh=refresh)
+        except IntegrityError:
+            if not _PROCESS_IDS.get(_process_ids_key(job.project_id)):
+                raise
+            # A foreign key failed at commit: a test-case id kept by this process may belong to a row deleted
+            # since. The transaction was rolled back; forget the kept ids and import once more, looking up all.
+            testcase_ids_forget(project_id=job.project_id)
+            counts = _job_write(job=job, meta=meta, stored_files=stored_files, progress=progress, refresh=refresh)
     except (JUnitParseError, ResultsImportError) as exc:
         _job_fail(job, str(exc))
         raise ResultsImportError(str(exc)) from exc
@@ -384,6 +444,37 @@ def results_job_run(*, job: ImportJob, progress: bool = True, refresh: bool = Tr
         log.exception("results import job %s failed", job.pk)
         _job_fail(job, f"internal error while importing: {exc.__class__.__name__}: {exc}")
         raise
+    return counts
+
+
+def _job_write(
+    *, job: ImportJob, meta: BuildMeta, stored_files: list[StoredFile], progress: bool, refresh: bool
+) -> ImportCounts:
+    """The import transaction of results_job_run: all rows, the rollup and the job's final state, or nothing."""
+    counts = ImportCounts()
+    total_bytes = max(1, sum(s.size for s in stored_files))
+    done_bytes = 0
+    with transaction.atomic():
+        build, created = _build_get_or_create(job.project, meta, None)
+        writer = _BuildWriter(job=job, build=build, counts=counts, existing=not created)
+        for stored in stored_files:
+            for display, sha, stream in _reports_in(stored):
+                writer.report(display, sha, stream)
+            done_bytes += stored.size
+            if progress:
+                _progress_save(job, done_bytes / total_bytes)
+        writer.finish()
+        job.build = build
+        job.status = ImportJob.Status.DONE
+        job.counts = counts.as_dict()
+        job.warnings = counts.warnings
+        job.progress = 1.0
+        job.finished_at = timezone.now()
+        job.save(update_fields=["build", "status", "counts", "warnings", "progress", "finished_at"])
+        if writer.new_results and refresh:
+            from ingest.hooks import after_results_import
+
+            transaction.on_commit(lambda: after_results_import(project_id=job.project_id, build_id=build.id))
     return counts
 
 
@@ -496,6 +587,7 @@ class _BuildWriter:
 
     def finish(self) -> None:
         self.counts.new_test_cases = self.cases.created
+        self.cases.publish_on_commit()
         if self.imported:
             ImportedReport.objects.bulk_create(self.imported)
         if self.new_results:
