@@ -578,7 +578,8 @@ class _BuildWriter:
             rows.append(
                 (
                     self.project.id, self.build.id, tc_id, p.outcome, p.duration, attempt, p.failure_type[:300],
-                    p.message, p.details, p.system_out, p.system_err, json.dumps(dict(p.truncated)), "",
+                    p.message, p.details, p.system_out, p.system_err,
+                    json.dumps(dict(p.truncated)) if p.truncated else "{}", "",
                 )
             )
         n = rows_bulk_insert(table=TestResult._meta.db_table, columns=RESULT_COLUMNS, rows=rows)
