@@ -78,6 +78,10 @@ def ingest_tables_empty() -> None:
     """Empty the results side of the database (projects and components stay) before a timed import."""
     from django.db import connection, transaction
 
+    from ingest.services.results import testcase_ids_forget
+
+    testcase_ids_forget()  # the per-process test-case id cache must not outlive the emptied tables
+
     if connection.vendor == "postgresql":
         with connection.cursor() as cur:
             cur.execute("TRUNCATE " + ", ".join(INGEST_TABLES) + " RESTART IDENTITY CASCADE")

@@ -179,3 +179,24 @@ def test_manifest_backfill_and_rollup_match_recomputation(tmp_path):
     rebuilt = sorted(TestWeek.objects.values_list("test_case__name", "week", "runs", "failed", "duration_total"))
     assert incremental == rebuilt
     assert sum(r[3] for r in rebuilt if r[0] == "a") == 3 and sum(r[3] for r in rebuilt if r[0] == "b") == 0
+
+
+@pytest.mark.django_db
+def test_two_jobs_into_one_build_keep_the_rollup_equal_to_recomputation():
+    # Regression: a second report imported into an existing build counted the first job's results twice in
+    # the weekly rollup. Reference: the rollup recomputed from the stored results (rollup_rebuild).
+    import io as _io
+
+    from ingest.services.results import BuildMeta, results_job_create, results_job_run
+
+    project = Project.objects.create(slug="p", name="p")
+    for i, name in enumerate(["a", "b"]):
+        xml = (f'<testsuite name="s"><testcase classname="c" name="{name}" time="1"/>'
+               f'<testcase classname="c" name="z" time="2"/></testsuite>').encode()
+        job = results_job_create(project=project, files=[(f"r{i}.xml", _io.BytesIO(xml))],
+                                 meta=BuildMeta(build="b1", started="2026-10-01T00:00:00Z"), via="cli")
+        results_job_run(job=job, refresh=False)
+    incremental = sorted(TestWeek.objects.values_list("test_case__name", "runs", "duration_total"))
+    rollup_rebuild(project=project)
+    assert incremental == sorted(TestWeek.objects.values_list("test_case__name", "runs", "duration_total"))
+    assert dict((n, r) for n, r, _ in incremental) == {"a": 1, "b": 1, "z": 2}
