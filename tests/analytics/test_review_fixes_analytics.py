@@ -67,7 +67,6 @@ from tests.analytics.test_forecasts import (  # noqa: F401 (_few_origins: autous
 from tests.analytics.views.test_overview import (  # noqa: F401 (fixtures)
     WEEK_B,
     client_in_fixture,
-    viewer_fixture,
     world_fixture,
 )
 

@@ -13,7 +13,7 @@ import json
 from pathlib import Path
 
 import pytest
-from django.contrib.auth.models import Group, Permission, User
+from django.contrib.auth.models import User
 from django.core.files.uploadedfile import SimpleUploadedFile
 from django.core.files.uploadhandler import MemoryFileUploadHandler, TemporaryFileUploadHandler
 from django.http.multipartparser import MultiPartParser
@@ -39,23 +39,6 @@ EXPORT = b"Key,Title,Created,Status\r\nBW-1,Gate code rejected,2026-03-01T08:00:
 CMAP = '{"name": "desk", "fields": {"key": "Key", "title": "Title", "created": "Created", "status": "Status"}}'
 
 
-@pytest.fixture(name="project")
-def project_fixture(db):
-    return Project.objects.create(slug="berthwise", name="Berthwise")
-
-
-@pytest.fixture(name="viewer")
-def viewer_fixture(db):
-    return User.objects.create_user("vera", password="pw-vera")
-
-
-@pytest.fixture(name="triager")
-def triager_fixture(db):
-    user = User.objects.create_user("tomas", password="pw-tomas")
-    group, _ = Group.objects.get_or_create(name="triagers")
-    group.permissions.add(Permission.objects.get(codename="triage", content_type__app_label="analytics"))
-    user.groups.add(group)
-    return user
 
 
 @pytest.fixture(autouse=True)

@@ -13,7 +13,6 @@ import io
 from pathlib import Path
 
 import pytest
-from django.contrib.auth.models import Group, Permission, User
 from django.core.cache import cache
 from django.core.files.uploadedfile import SimpleUploadedFile
 from django.urls import reverse
@@ -46,23 +45,6 @@ DEFECTS_CSV = (
 ).encode()
 
 
-@pytest.fixture(name="project")
-def project_fixture(db):
-    return Project.objects.create(slug="berthwise", name="Berthwise")
-
-
-@pytest.fixture(name="viewer")
-def viewer_fixture(db):
-    return User.objects.create_user("vera", password="pw-vera")
-
-
-@pytest.fixture(name="triager")
-def triager_fixture(db):
-    user = User.objects.create_user("tomas", password="pw-tomas")
-    group, _ = Group.objects.get_or_create(name="triagers")
-    group.permissions.add(Permission.objects.get(codename="triage", content_type__app_label="analytics"))
-    user.groups.add(group)
-    return user
 
 
 def _import(project, data: bytes, name: str, build: str, **meta) -> ImportJob:

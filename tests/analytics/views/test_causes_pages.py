@@ -21,9 +21,6 @@ from tests.analytics.views.test_flaky_pages_helpers import (  # noqa: F401 (fixt
     make_build,
     make_result,
     make_test,
-    project_fixture,
-    triager_fixture,
-    viewer_fixture,
 )
 
 pytestmark = pytest.mark.django_db

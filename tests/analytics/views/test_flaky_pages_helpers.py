@@ -4,33 +4,13 @@ from __future__ import annotations
 
 from datetime import UTC, datetime, timedelta
 
-import pytest
-from django.contrib.auth.models import Group, Permission, User
-
 from analytics.models import TestHealth
-from ingest.models import Build, Component, Project, TestCase, TestResult
+from ingest.models import Build, Component, TestCase, TestResult
 
 XSS = "<img src=x onerror=alert(1)>"
 START = datetime(2026, 10, 5, 9, 0, tzinfo=UTC)
 
 
-@pytest.fixture(name="project")
-def project_fixture(db):
-    return Project.objects.create(slug="berthwise", name="Berthwise")
-
-
-@pytest.fixture(name="viewer")
-def viewer_fixture(db):
-    return User.objects.create_user("vera", password="pw-vera")
-
-
-@pytest.fixture(name="triager")
-def triager_fixture(db):
-    user = User.objects.create_user("tomas", password="pw-tomas")
-    group, _ = Group.objects.get_or_create(name="triagers")
-    group.permissions.add(Permission.objects.get(codename="triage", content_type__app_label="analytics"))
-    user.groups.add(group)
-    return user
 
 
 def make_build(project, n: int, *, commit: str | None = None, external_id: str | None = None) -> Build:

@@ -11,7 +11,6 @@ import io
 from datetime import UTC, date, datetime, timedelta
 
 import pytest
-from django.contrib.auth.models import User
 from django.urls import reverse
 
 from analytics.models import TestHealth
@@ -22,11 +21,6 @@ from ingest.services.results import rollup_rebuild
 XSS = "<img src=x onerror=alert(1)>"
 WEEK_A = date(2026, 10, 5)  # Monday
 WEEK_B = date(2026, 10, 12)  # Monday; the last complete week with data (today is later)
-
-
-@pytest.fixture(name="viewer")
-def viewer_fixture(db):
-    return User.objects.create_user("vera", password="pw-vera")
 
 
 @pytest.fixture(name="client_in")
