@@ -9,11 +9,6 @@ defects created before that date (nothing stored).
 
 from __future__ import annotations
 
-from datetime import date
-from typing import Any
-
-from django.core.cache import cache
-from django.db.models import Count, Max
 from django.shortcuts import get_object_or_404
 from django.urls import path
 from drf_spectacular.utils import extend_schema
@@ -21,12 +16,10 @@ from rest_framework import serializers, status
 from rest_framework.response import Response
 from rest_framework.views import APIView
 
-from analytics.models import ForecastSnapshot
-from analytics.selectors_forecasts import defects_data_cutoff
 from analytics.services.forecasts import (
     DEFAULT_HORIZON_WEEKS,
     MAX_HORIZON_WEEKS,
-    forecast_report,
+    forecast_report_cached,
     forecast_rows,
 )
 from ingest.api.auth import ProjectAccess
@@ -37,26 +30,6 @@ RECONCILIATION = (
     "ratio of distinct defects to component memberships; its backtest rows score models fitted to the total "
     "directly, so none of them is marked chosen"
 )
-
-#: A computed report (``as_of`` or a longer horizon) takes seconds; it is kept this long, keyed on the data
-#: version, so a new defect import or forecast refresh is seen at once (as the dashboard's cache does).
-REPORT_CACHE_SECONDS = 6 * 3600
-
-
-def _report_cached(project: Project, *, horizon_weeks: int, as_of: date | None = None) -> dict[str, Any]:
-    """``forecast_report`` cached per project, horizon, ``as_of`` and data state (snapshots, defect imports)."""
-    stored = ForecastSnapshot.objects.filter(project=project).aggregate(at=Max("computed_at"), n=Count("id"))
-    cutoff = defects_data_cutoff(project_id=project.pk)
-    key = (
-        f"barometer:api-forecast-report:{project.pk}:{horizon_weeks}:{as_of and as_of.isoformat()}:"
-        f"{stored['n']}:{stored['at'] and stored['at'].isoformat()}:{cutoff and cutoff.isoformat()}"
-    )
-    report = cache.get(key)
-    if report is None:
-        report = forecast_report(project=project, horizon_weeks=horizon_weeks, as_of=as_of)
-        cache.set(key, report, REPORT_CACHE_SECONDS)
-    return report
-
 
 class ForecastQueryInput(serializers.Serializer):
     horizon_weeks = serializers.IntegerField(
@@ -124,7 +97,7 @@ class ForecastsView(APIView):
         query = ForecastQueryInput(data=request.query_params)
         query.is_valid(raise_exception=True)
         try:
-            report = _report_cached(project, **query.validated_data)
+            report = forecast_report_cached(project=project, **query.validated_data)
         except ValueError as exc:
             return Response({"detail": str(exc)}, status=status.HTTP_400_BAD_REQUEST)
         series = [

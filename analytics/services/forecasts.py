@@ -30,7 +30,9 @@ from datetime import UTC, date, datetime
 from typing import Any
 
 import pandas as pd
+from django.core.cache import cache
 from django.db import transaction
+from django.db.models import Count, Max
 from django.utils import timezone
 
 from analytics.core.forecast import TOTAL, SeriesForecast, forecast_components
@@ -255,3 +257,28 @@ def forecast_export_rows(
     """
     report = forecast_report(project=project, horizon_weeks=horizon_weeks, as_of=as_of)
     return [row for payload in report["series"] for row in forecast_rows(payload)]
+
+
+#: A computed report (``as_of`` or a longer horizon than stored) takes seconds; it is kept this long, keyed on
+#: the data version, so a new defect import or forecast refresh is seen at once.
+REPORT_CACHE_SECONDS = 6 * 3600
+
+
+def forecast_report_cached(
+    *, project: Project, horizon_weeks: int = DEFAULT_HORIZON_WEEKS, as_of: date | None = None
+) -> dict[str, Any]:
+    """:func:`forecast_report`, cached per project, horizon, ``as_of`` and data state (snapshots, imports).
+
+    The dashboard pages and the API share this cache.
+    """
+    stored = ForecastSnapshot.objects.filter(project=project).aggregate(at=Max("computed_at"), n=Count("id"))
+    cutoff = defects_data_cutoff(project_id=project.pk)
+    key = (
+        f"barometer:forecast-report:{project.pk}:{horizon_weeks}:{as_of and as_of.isoformat()}:"
+        f"{stored['n']}:{stored['at'] and stored['at'].isoformat()}:{cutoff and cutoff.isoformat()}"
+    )
+    report = cache.get(key)
+    if report is None:
+        report = forecast_report(project=project, horizon_weeks=horizon_weeks, as_of=as_of)
+        cache.set(key, report, REPORT_CACHE_SECONDS)
+    return report

@@ -13,14 +13,11 @@ import re
 from typing import Any
 from urllib.parse import urlencode
 
-from django.core.cache import cache
-from django.db.models import Count, Max
 from django.http import Http404, HttpRequest, HttpResponse
 from django.urls import path, reverse
 
 from analytics.charts.forecasts import forecast_chart, series_frames
 from analytics.models import ForecastSnapshot
-from analytics.selectors_forecasts import defects_data_cutoff
 from analytics.services.chart_export import (
     CONTENT_TYPES,
     DEFAULT_HEIGHT,
@@ -33,7 +30,7 @@ from analytics.services.forecasts import (
     DEFAULT_HORIZON_WEEKS,
     EXPORT_FIELDS,
     MAX_HORIZON_WEEKS,
-    forecast_report,
+    forecast_report_cached,
     forecast_rows,
 )
 from analytics.views.common import figure_div, int_param, project_page, render_page
@@ -49,7 +46,6 @@ SHEET_CHART_SIZE = (224, 104)
 SHEET_DENSE_FROM = 10  # from this many series on: four columns and smaller charts in print
 SHEET_DENSE_CHART_SIZE = (166, 78)
 SHEET_ONE_PAGE_MAX = 16  # more series than this print on several pages (the sheet says so)
-REPORT_CACHE_SECONDS = 6 * 3600
 
 UNKNOWN_SERIES = "No forecast for series {name!r} in this project."
 BAD_NUMBER = "{field} must be a whole number, got {value!r}"
@@ -77,18 +73,7 @@ def series_label(name: str) -> str:
 
 
 def _report(project, horizon: int) -> dict[str, Any]:
-    """``forecast_report`` cached per project, horizon and data state (a computed one takes seconds)."""
-    stored = ForecastSnapshot.objects.filter(project=project).aggregate(at=Max("computed_at"), n=Count("id"))
-    cutoff = defects_data_cutoff(project_id=project.pk)
-    key = (
-        f"barometer:forecast-report:{project.pk}:{horizon}:{stored['n']}:"
-        f"{stored['at'] and stored['at'].isoformat()}:{cutoff and cutoff.isoformat()}"
-    )
-    report = cache.get(key)
-    if report is None:
-        report = forecast_report(project=project, horizon_weeks=horizon)
-        cache.set(key, report, REPORT_CACHE_SECONDS)
-    return report
+    return forecast_report_cached(project=project, horizon_weeks=horizon)
 
 
 def _horizon(request: HttpRequest) -> int:

@@ -23,7 +23,6 @@ from django.urls import reverse
 from django.utils import timezone
 from rest_framework.test import APIClient
 
-from analytics.api import forecasts as forecasts_api
 from analytics.charts.causes import trend_frame, weekly_trend_figure
 from analytics.charts.overview import component_failures_chart
 from analytics.models import (
@@ -319,13 +318,15 @@ def test_an_identical_computed_forecast_request_is_served_from_the_cache(forecas
     project, client = forecast_client
     cache.clear()
     calls = []
-    real = forecasts_api.forecast_report
+    from analytics.services import forecasts as forecasts_service
+
+    real = forecasts_service.forecast_report
 
     def counting(**kwargs):
         calls.append(kwargs)
         return real(**kwargs)
 
-    monkeypatch.setattr(forecasts_api, "forecast_report", counting)
+    monkeypatch.setattr(forecasts_service, "forecast_report", counting)
     url = f"/api/v1/projects/{project.slug}/forecasts/"
     as_of = (CUTOFF - timedelta(weeks=1)).date().isoformat()
     first = client.get(url, {"as_of": as_of, "horizon_weeks": 2})
