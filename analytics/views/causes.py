@@ -29,6 +29,7 @@ from analytics.views.common import (
     project_page,
     query_string,
     render_page,
+    sort_headers,
     sort_param,
     table_download,
     triage_required,
@@ -60,22 +61,6 @@ def _list_filters(request: HttpRequest) -> dict:
     }
 
 
-def _headers(request: HttpRequest, sort: str, columns) -> list[dict]:
-    headers = []
-    for key, label in columns:
-        if key is None:
-            headers.append({"label": label})
-            continue
-        current = sort.lstrip("-") == key
-        descending = current and sort.startswith("-")
-        headers.append({
-            "label": label,
-            "href": "?" + query_string(request, sort=key if descending else f"-{key}", page=None),
-            "aria_sort": ("descending" if descending else "ascending") if current else None,
-        })
-    return headers
-
-
 @require_GET
 @project_page
 def causes_list(request: HttpRequest) -> HttpResponse:
@@ -104,7 +89,7 @@ def causes_list(request: HttpRequest) -> HttpResponse:
     context = {
         "rows": rows,
         "page": page,
-        "headers": _headers(request, sort, columns),
+        "headers": sort_headers(request, sort, columns),
         "q": filters["search"] or "",
         "min_failures": filters["min_failures"] or "",
         "defects": request.GET.get("defects", ""),

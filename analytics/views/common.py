@@ -117,6 +117,24 @@ def sort_param(request: HttpRequest, allowed: Mapping[str, str], default: str) -
     return raw, ("-" if descending else "") + allowed[key]
 
 
+def sort_headers(request: HttpRequest, sort: str, columns) -> list[dict]:
+    """Table headers for ``columns`` ((public sort key or None, label), …): a link that sorts by the column
+    (descending first, then ascending) and the ``aria-sort`` state of the current one."""
+    headers = []
+    for key, label in columns:
+        if key is None:
+            headers.append({"label": label})
+            continue
+        current = sort.lstrip("-") == key
+        descending = current and sort.startswith("-")
+        headers.append({
+            "label": label,
+            "href": "?" + query_string(request, sort=key if descending else f"-{key}", page=None),
+            "aria_sort": ("descending" if descending else "ascending") if current else None,
+        })
+    return headers
+
+
 def paginate(request: HttpRequest, items, *, per_page: int = PAGE_SIZE):
     """A Django Page of *items* (queryset or list) for ``?page=``; out-of-range pages clamp."""
     size = int_param(request, "per_page", per_page, low=10, high=MAX_PAGE_SIZE)

@@ -22,6 +22,7 @@ from analytics.views.common import (
     project_page,
     query_string,
     render_page,
+    sort_headers,
     sort_param,
     table_download,
     triage_required,
@@ -112,23 +113,11 @@ def flaky_list(request: HttpRequest) -> HttpResponse:
     columns = [("name", "Test"), ("component", "Component"), ("score", "Score"), ("verdict", "Verdict"),
                (None, "Triage"), ("runs", "Runs"), ("failures", "Failures"), ("last_failure", "Last failure"),
                (None, "Latest runs")]
-    headers = []
-    for key, label in columns:
-        if key is None:
-            headers.append({"label": label})
-            continue
-        current = sort.lstrip("-") == key
-        descending = current and sort.startswith("-")
-        headers.append({
-            "label": label,
-            "href": "?" + query_string(request, sort=key if descending else f"-{key}", page=None),
-            "aria_sort": ("descending" if descending else "ascending") if current else None,
-        })
     release = quarantine_release_candidates(project_id=project.pk)
     context = {
         "rows": rows,
         "page": page,
-        "headers": headers,
+        "headers": sort_headers(request, sort, columns),
         "release_candidates": release[:RELEASE_SHOWN],
         "release_count": len(release),
         "release_after": settings.BAROMETER_RELEASE_AFTER_GREEN_RUNS,
