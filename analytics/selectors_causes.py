@@ -124,3 +124,17 @@ def cluster_results_qs(*, cluster: FailureCluster) -> QuerySet[TestResult]:
         .select_related("build", "test_case")
         .order_by("-build__started_at", "-id")
     )
+
+
+def cluster_summary(cluster: FailureCluster) -> dict:
+    """The fields every listing of a cause shows (page table, downloads, ``export_analytics``)."""
+    return {
+        "cluster_id": cluster.pk,
+        "label": cluster.label,
+        "exception": cluster.exception,
+        "failures": cluster.failures,
+        "tests_affected": cluster.tests_affected,
+        "builds_affected": cluster.builds_affected,
+        "first_seen": cluster.first_seen,
+        "last_seen": cluster.last_seen,
+    }

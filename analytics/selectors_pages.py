@@ -21,6 +21,7 @@ from analytics.models import (
     TriageEvent,
     TriageState,
 )
+from analytics.selectors_causes import cluster_summary
 from ingest.models import Build, Component, Outcome, TestCase, TestResult
 
 #: Public sort keys of the flaky-test table → ORM field.
@@ -276,14 +277,7 @@ def latest_build_week(*, project_id: int):
 def cluster_table_row(cluster: FailureCluster) -> dict:
     links = list(cluster.defect_links.all())
     return {
-        "cluster_id": cluster.pk,
-        "label": cluster.label,
-        "exception": cluster.exception,
-        "failures": cluster.failures,
-        "tests_affected": cluster.tests_affected,
-        "builds_affected": cluster.builds_affected,
-        "first_seen": cluster.first_seen,
-        "last_seen": cluster.last_seen,
+        **cluster_summary(cluster),
         "weekly_trend": " ".join(f"{week}:{n}" for week, n in (cluster.weekly_trend or [])),
         "defects": " ".join(f"{ln.defect.key}{'' if ln.confirmed else '?'}" for ln in links[:LIST_DEFECTS]),
     }

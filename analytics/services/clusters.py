@@ -687,7 +687,7 @@ def failures_export_rows(*, project: Project) -> list[dict]:
 
 def clusters_export_rows(*, project: Project) -> list[dict]:
     """Every cluster holding failures, largest first, with its counts and linked defects."""
-    from analytics.selectors_causes import active_clusters_qs
+    from analytics.selectors_causes import active_clusters_qs, cluster_summary
 
     links: dict[int, list[ClusterDefectLink]] = {}
     for link in ClusterDefectLink.objects.filter(cluster__project=project).select_related("defect"):
@@ -697,14 +697,7 @@ def clusters_export_rows(*, project: Project) -> list[dict]:
         mine = links.get(cluster.pk, [])
         out.append(
             {
-                "cluster_id": cluster.pk,
-                "label": cluster.label,
-                "exception": cluster.exception,
-                "failures": cluster.failures,
-                "tests_affected": cluster.tests_affected,
-                "builds_affected": cluster.builds_affected,
-                "first_seen": cluster.first_seen,
-                "last_seen": cluster.last_seen,
+                **cluster_summary(cluster),
                 "representative": cluster.representative_text,
                 "confirmed_defects": " ".join(link.defect.key for link in mine if link.confirmed),
                 "suggested_defects": " ".join(
