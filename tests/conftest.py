@@ -1,5 +1,6 @@
 import pytest
 from django.contrib.auth.models import Group, Permission, User
+from django.test import Client
 
 
 @pytest.fixture(name="project")
@@ -30,3 +31,19 @@ def triager_fixture(db):
 def _media_root(settings, tmp_path):
     """Each test stores its raw uploads in its own folder."""
     settings.MEDIA_ROOT = str(tmp_path / "media")
+
+
+@pytest.fixture
+def viewer_client(viewer) -> Client:
+    """A test client signed in as the viewer."""
+    client = Client()
+    client.force_login(viewer)
+    return client
+
+
+@pytest.fixture
+def triager_client(triager) -> Client:
+    """A test client signed in as the triager."""
+    client = Client()
+    client.force_login(triager)
+    return client

@@ -88,20 +88,6 @@ def causes(project):
     return {"berth": berth, "refund": refund, "gate": gate, "old": old, "defect": defect}
 
 
-@pytest.fixture
-def viewer_client(viewer) -> Client:
-    client = Client()
-    client.force_login(viewer)
-    return client
-
-
-@pytest.fixture
-def triager_client(triager) -> Client:
-    client = Client()
-    client.force_login(triager)
-    return client
-
-
 # ------------------------------------------------------------------------------------------------ auth
 
 

@@ -57,20 +57,6 @@ def suspects(project):
     return tests
 
 
-@pytest.fixture
-def viewer_client(viewer) -> Client:
-    client = Client()
-    client.force_login(viewer)
-    return client
-
-
-@pytest.fixture
-def triager_client(triager) -> Client:
-    client = Client()
-    client.force_login(triager)
-    return client
-
-
 # ------------------------------------------------------------------------------------------------ auth
 
 
