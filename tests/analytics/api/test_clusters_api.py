@@ -7,7 +7,6 @@ Ground truth: failures raised by the real Python interpreter from known causes
 from __future__ import annotations
 
 import pytest
-from django.contrib.auth.models import Permission, User
 from django.db import connection
 from django.test.utils import CaptureQueriesContext
 from django.utils import timezone
@@ -17,6 +16,7 @@ from analytics.api.clusters import ERR_TOKEN_CANNOT_CHANGE, ERR_UNKNOWN_DEFECT
 from analytics.models import ClusterDefectLink, FailureCluster, FailureSignature
 from analytics.services.clusters import ERR_MERGE_SELF, ERR_NOT_TRIAGER, clusters_refresh
 from ingest.models import ApiToken, Defect, TestResult
+from tests.analytics.api.clients import session_client
 from tests.analytics.test_clusters_support import history, make_project
 
 pytestmark = pytest.mark.django_db
@@ -37,24 +37,6 @@ def project():
     )
     clusters_refresh(project_id=project.pk)
     return project
-
-
-@pytest.fixture
-def token_client(project):
-    client = APIClient()
-    client.credentials(HTTP_AUTHORIZATION=f"Bearer {ApiToken.issue(project=project, name='ci')[1]}")
-    return client
-
-
-def session_client(*, triager: bool) -> APIClient:
-    user = User.objects.create_user("ines" if triager else "viewer", password="x")
-    if triager:
-        user.user_permissions.add(
-            Permission.objects.get(codename="triage", content_type__app_label="analytics")
-        )
-    client = APIClient()
-    client.force_login(user)
-    return client
 
 
 def test_reads_need_a_token_of_this_project_or_a_session(project, token_client):

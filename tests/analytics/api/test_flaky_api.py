@@ -5,7 +5,6 @@ from __future__ import annotations
 from urllib.parse import quote
 
 import pytest
-from django.contrib.auth.models import Permission, User
 from django.db import connection
 from django.test.utils import CaptureQueriesContext
 from rest_framework.test import APIClient
@@ -14,7 +13,7 @@ from analytics.api.flaky import ERR_TOKEN_CANNOT_TRIAGE, FlakyTestOutput
 from analytics.models import TestHealth, TestTriage, TriageEvent, TriageState
 from analytics.services.flaky import EVIDENCE_FIELDS, flaky_scores_refresh
 from analytics.services.triage import ERR_NOT_ALLOWED, QUARANTINE_WARNING, triage_set
-from ingest.models import ApiToken
+from tests.analytics.api.clients import session_client, token_client_for
 from tests.analytics.test_flaky_service_support import CLASSNAME, add_history, make_project
 
 pytestmark = pytest.mark.django_db
@@ -34,22 +33,6 @@ def project():
     return project
 
 
-@pytest.fixture
-def token_client(project):
-    client = APIClient()
-    client.credentials(HTTP_AUTHORIZATION=f"Bearer {ApiToken.issue(project=project, name='ci')[1]}")
-    return client
-
-
-def session_client(*, triager: bool) -> APIClient:
-    user = User.objects.create_user("ines" if triager else "viewer", password="x")
-    if triager:
-        user.user_permissions.add(Permission.objects.get(codename="triage", content_type__app_label="analytics"))
-    client = APIClient()
-    client.force_login(user)
-    return client
-
-
 URL = "/api/v1/projects/berthwise/"
 
 
@@ -57,8 +40,7 @@ def test_reads_need_a_token_of_this_project_or_a_session(project, token_client):
     assert APIClient().get(URL + "flaky-tests/").status_code == 401
     assert APIClient().get(URL + "quarantine/?format=txt").status_code == 401
     other = make_project("other")
-    foreign = APIClient()
-    foreign.credentials(HTTP_AUTHORIZATION=f"Bearer {ApiToken.issue(project=other, name='x')[1]}")
+    foreign = token_client_for(other)
     assert foreign.get(URL + "quarantine/").status_code == 403
     assert token_client.get(URL + "flaky-tests/").status_code == 200
     assert session_client(triager=False).get(URL + "quarantine/").status_code == 200
