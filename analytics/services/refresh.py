@@ -27,6 +27,11 @@ def _recorded(*, project_id: int, detector: str, scope: str, run: Callable[[], i
     return count, seconds
 
 
+def _run_steps(*, project_id: int, scope: str, steps: dict[str, Callable[[], int]]) -> dict[str, tuple[int, float]]:
+    """Run the detectors in order, each recorded; a failing one is recorded and stops the rest."""
+    return {name: _recorded(project_id=project_id, detector=name, scope=scope, run=run) for name, run in steps.items()}
+
+
 def analytics_refresh(*, project_id: int) -> dict[str, tuple[int, float]]:
     """Full refresh: every detector on the whole window. Returns {detector: (rows written, seconds)}."""
     from analytics.services.clusters import clusters_refresh
@@ -40,8 +45,7 @@ def analytics_refresh(*, project_id: int) -> dict[str, tuple[int, float]]:
         "forecasts": lambda: forecasts_refresh(project_id=project_id),
         "duplicates": lambda: defect_duplicates_refresh(project_id=project_id),
     }
-    return {name: _recorded(project_id=project_id, detector=name, scope="full", run=run)
-            for name, run in steps.items()}
+    return _run_steps(project_id=project_id, scope="full", steps=steps)
 
 
 def analytics_refresh_after_defects(*, project_id: int) -> dict[str, tuple[int, float]]:
@@ -55,8 +59,7 @@ def analytics_refresh_after_defects(*, project_id: int) -> dict[str, tuple[int, 
         "duplicates": lambda: defect_duplicates_refresh(project_id=project_id),
         "cluster_defects": lambda: cluster_defect_links_refresh(project_id=project_id),
     }
-    return {name: _recorded(project_id=project_id, detector=name, scope="defects", run=run)
-            for name, run in steps.items()}
+    return _run_steps(project_id=project_id, scope="defects", steps=steps)
 
 
 def analytics_refresh_after_build(*, project_id: int, build_id: int) -> dict[str, tuple[int, float]]:
@@ -70,5 +73,4 @@ def analytics_refresh_after_build(*, project_id: int, build_id: int) -> dict[str
         "flaky": lambda: flaky_scores_refresh(project_id=project_id, test_ids=test_ids),
         "clusters": lambda: clusters_assign_build(project_id=project_id, build_id=build_id),
     }
-    return {name: _recorded(project_id=project_id, detector=name, scope="build", run=run)
-            for name, run in steps.items()}
+    return _run_steps(project_id=project_id, scope="build", steps=steps)
