@@ -1,7 +1,7 @@
 """Reads behind the "This week" page: rollups (TestWeek, TestHealth, Defect counts) → DataFrames and dicts.
 
-Nothing here scans the raw results table: every figure comes from the per-test weekly rollup kept by ingest
-(``TestWeek``), the latest flakiness scores (``TestHealth``) or the defects table, so the page's cost grows
+Nothing here scans the raw results table: every figure comes from the weekly rollups kept by ingest
+(``ProjectWeek`` for the trends, ``TestWeek`` for the week's tests), the latest flakiness scores (``TestHealth``) or the defects table, so the page's cost grows
 with the number of tests and weeks shown, not with the history. The number of queries is fixed (the view
 tests pin it).
 """
@@ -12,11 +12,11 @@ from dataclasses import dataclass
 from datetime import UTC, date, datetime, time, timedelta
 
 import pandas as pd
-from django.db.models import Count, Exists, F, FloatField, OuterRef, Q, QuerySet, Sum, Value
-from django.db.models.functions import Cast, Coalesce, NullIf, TruncWeek
+from django.db.models import Count, Exists, F, FloatField, OuterRef, Q, QuerySet, Subquery, Sum
+from django.db.models.functions import Cast, NullIf, TruncWeek
 
 from analytics.models import TestHealth
-from ingest.models import Build, Defect, TestWeek, week_start
+from ingest.models import Build, Component, Defect, ProjectWeek, TestWeek, week_start
 
 TREND_WEEKS = 26
 GROWTH_WINDOW = 4  # weeks compared on each side for the test-time growth
@@ -24,6 +24,7 @@ GROWTH_TOP = 8
 ROW_KINDS = ("failed", "newly-failing", "fixed", "tests", "defects-opened", "defects-closed", "backlog", "flaky")
 
 _FAILING = Q(failed__gt=0) | Q(errors__gt=0)
+NO_COMPONENT = "(no component)"
 
 
 @dataclass(frozen=True)
@@ -74,20 +75,28 @@ def _defects(scope: Scope) -> QuerySet:
     return qs
 
 
+def _projectweeks(scope: Scope, *, weeks: int) -> QuerySet:
+    first = scope.week - timedelta(weeks=weeks - 1)
+    qs = ProjectWeek.objects.filter(project_id=scope.project_id, week__gte=first, week__lte=scope.week)
+    if scope.component_id is not None:
+        qs = qs.filter(component_key=scope.component_id)
+    return qs
+
+
 def weekly_runs_frame(scope: Scope, *, weeks: int = TREND_WEEKS) -> pd.DataFrame:
     """One row per week up to ``scope.week``: runs, passed, failed, errors, skipped, tests, duration (s).
 
     ``pass_rate`` is passed / (runs − skipped): skipped runs say nothing about quality. Weeks without
-    runs are present with zeros and a missing pass rate, so a gap shows as a gap.
+    runs are present with zeros and a missing pass rate, so a gap shows as a gap. Read from the
+    per-component weekly totals (``ProjectWeek``): a few rows a week, whatever the number of tests.
     """
     first = scope.week - timedelta(weeks=weeks - 1)
     rows = (
-        _testweeks(scope)
-        .filter(week__gte=first, week__lte=scope.week)
+        _projectweeks(scope, weeks=weeks)
         .values("week")
         .annotate(
             n_runs=Sum("runs"), n_passed=Sum("passed"), n_failed=Sum("failed"), n_errors=Sum("errors"),
-            n_skipped=Sum("skipped"), n_tests=Count("id", filter=Q(runs__gt=0)), n_duration=Sum("duration_total"),
+            n_skipped=Sum("skipped"), n_tests=Sum("tests"), n_duration=Sum("duration_total"),
         )
         .order_by("week")
     )
@@ -106,17 +115,27 @@ def weekly_runs_frame(scope: Scope, *, weeks: int = TREND_WEEKS) -> pd.DataFrame
 
 
 def component_failures_frame(scope: Scope, *, weeks: int = TREND_WEEKS) -> pd.DataFrame:
-    """Failed runs (failures + errors) per week and component: columns week, component, failures."""
-    first = scope.week - timedelta(weeks=weeks - 1)
+    """Failed runs (failures + errors) per week and component: columns week, component, failures.
+
+    Read from the per-component weekly totals; totals kept under a component that was deleted since
+    (its tests now have none) count as "(no component)", as those tests do now.
+    """
+    name = Component.objects.filter(id=OuterRef("component_key")).values("name")[:1]
     rows = (
-        _testweeks(scope)
-        .filter(week__gte=first, week__lte=scope.week)
+        _projectweeks(scope, weeks=weeks)
         .filter(_FAILING)
-        .values("week", component=Coalesce("test_case__component__name", Value("(no component)")))
-        .annotate(failures=Sum(F("failed") + F("errors")))
-        .order_by("week", "component")
+        .values("week", "component_key")
+        .annotate(failures=Sum(F("failed") + F("errors")), name=Subquery(name))
     )
-    return pd.DataFrame.from_records(list(rows), columns=["week", "component", "failures"])
+    frame = pd.DataFrame.from_records(
+        [(r["week"], r["name"] or NO_COMPONENT, int(r["failures"])) for r in rows],
+        columns=["week", "component", "failures"],
+    )
+    if frame.empty:
+        return frame
+    return frame.groupby(["week", "component"], as_index=False)["failures"].sum().sort_values(
+        ["week", "component"], ignore_index=True
+    )
 
 
 def _newly_failing(scope: Scope) -> QuerySet:
@@ -213,7 +232,7 @@ def duration_growth_frame(scope: Scope, *, window: int = GROWTH_WINDOW, top: int
         columns=["test_id", "classname", "name", "component", "before", "recent", "growth"],
     )
     frame["test"] = [f"{c}::{n}" if c else n for c, n in zip(frame["classname"], frame["name"])]
-    frame["component"] = frame["component"].fillna("(no component)")
+    frame["component"] = frame["component"].fillna(NO_COMPONENT)
     return frame[["test_id", "test", "component", "before", "recent", "growth"]]
 
 

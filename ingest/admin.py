@@ -2,6 +2,7 @@ from django import forms
 from django.contrib import admin, messages
 
 from ingest import models
+from ingest.services.results import project_weeks_rebuild
 from ingest.tasks import job_enqueue
 
 
@@ -40,6 +41,8 @@ class TestCaseAdmin(admin.ModelAdmin):
         if "component" in form.changed_data:
             obj.component_locked = True
         super().save_model(request, obj, form, change)
+        if change and "component" in form.changed_data:
+            project_weeks_rebuild(project_id=obj.project_id)  # the weekly totals are kept per component
 
 
 @admin.register(models.Build)

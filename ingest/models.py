@@ -198,6 +198,36 @@ class TestWeek(models.Model):
         indexes = [models.Index(fields=["project", "week"])]
 
 
+class ProjectWeek(models.Model):
+    """Per-project, per-week, per-component totals of :class:`TestWeek`, kept up to date by ingest.
+
+    The weekly trend charts read these few rows (weeks × components) instead of every test's week, so their
+    cost does not grow with the number of tests or the length of the history. ``component_key`` is the
+    test's component id at the time of writing, 0 for tests without a component (a plain integer, not a
+    foreign key, so that "no component" has a key the unique constraint can use); whatever re-assigns
+    components rebuilds these rows (``ingest.services.results.project_weeks_rebuild``). ``tests`` counts
+    the tests with at least one run in the week.
+    """
+
+    project = models.ForeignKey(Project, on_delete=models.CASCADE, related_name="+")
+    week = models.DateField()
+    component_key = models.BigIntegerField(default=0)
+    tests = models.IntegerField(default=0)
+    runs = models.IntegerField(default=0)
+    passed = models.IntegerField(default=0)
+    failed = models.IntegerField(default=0)
+    errors = models.IntegerField(default=0)
+    skipped = models.IntegerField(default=0)
+    reruns = models.IntegerField(default=0)
+    duration_total = models.FloatField(default=0.0)
+    duration_count = models.IntegerField(default=0)
+
+    class Meta:
+        constraints = [
+            models.UniqueConstraint(fields=["project", "week", "component_key"], name="uniq_project_week_component")
+        ]
+
+
 class ApiToken(models.Model):
     """A per-project upload/read token. Only a SHA-256 hash is stored; the key is shown once on creation."""
 

@@ -23,7 +23,10 @@ class ComponentRules:
 
 
 def components_apply_rules(*, project: Project) -> int:
-    """Re-assign every unlocked test case of ``project`` from the current rules; returns how many changed."""
+    """Re-assign every unlocked test case of ``project`` from the current rules; returns how many changed.
+
+    Rebuilds the per-component weekly totals when any test moved.
+    """
     rules = ComponentRules(project)
     changed = []
     for tc in TestCase.objects.filter(project=project, component_locked=False).only("id", "classname", "component_id"):
@@ -32,6 +35,10 @@ def components_apply_rules(*, project: Project) -> int:
             tc.component_id = new
             changed.append(tc)
     TestCase.objects.bulk_update(changed, ["component"], batch_size=2000)
+    if changed:
+        from ingest.services.results import project_weeks_rebuild  # results imports this module
+
+        project_weeks_rebuild(project_id=project.pk)  # the weekly totals are kept per component
     return len(changed)
 
 

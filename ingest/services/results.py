@@ -615,50 +615,111 @@ _ROLLUP_INSERT = (
 
 
 _OUTCOME_SLOT = {"passed": 1, "failed": 2, "error": 3, "skipped": 4}
-_ROLLUP_COLUMNS = "runs, passed, failed, errors, skipped, reruns, duration_total, duration_count"
-_ROLLUP_ADD = (
-    " ON CONFLICT (test_case_id, week) DO UPDATE SET"
-    " runs = ingest_testweek.runs + excluded.runs, passed = ingest_testweek.passed + excluded.passed,"
-    " failed = ingest_testweek.failed + excluded.failed, errors = ingest_testweek.errors + excluded.errors,"
-    " skipped = ingest_testweek.skipped + excluded.skipped, reruns = ingest_testweek.reruns + excluded.reruns,"
-    " duration_total = ingest_testweek.duration_total + excluded.duration_total,"
-    " duration_count = ingest_testweek.duration_count + excluded.duration_count"
-)
+_ROLLUP_FIELDS = ("runs", "passed", "failed", "errors", "skipped", "reruns", "duration_total", "duration_count")
+_ROLLUP_COLUMNS = ", ".join(_ROLLUP_FIELDS)
+
+
+def _rollup_add(table: str, conflict: str, fields: tuple[str, ...]) -> str:
+    """``ON CONFLICT … DO UPDATE`` adding the new row's counts to the stored ones."""
+    sets = ", ".join(f"{f} = {table}.{f} + excluded.{f}" for f in fields)
+    return f" ON CONFLICT ({conflict}) DO UPDATE SET {sets}"
+
+
+_TESTWEEK_ADD = _rollup_add("ingest_testweek", "test_case_id, week", _ROLLUP_FIELDS)
+_PROJECTWEEK_ADD = _rollup_add("ingest_projectweek", "project_id, week, component_key", ("tests", *_ROLLUP_FIELDS))
+_PROJECTWEEK_INSERT = f"INSERT INTO ingest_projectweek (project_id, week, component_key, tests, {_ROLLUP_COLUMNS})"
 
 
 def rollup_add_counts(*, project_id: int, week, counts: dict[int, list]) -> None:
-    """Add one job's results to the per-test weekly rollup in one statement (cost grows with the job only).
+    """Add one job's results to the weekly rollups (cost grows with the job only, not with the history).
 
     ``counts`` maps test case id → [runs, passed, failed, errors, skipped, reruns, duration total, duration
-    count] of the rows this job wrote into a build of ``week``. Must run in the transaction that wrote them.
+    count] of the rows this job wrote into a build of ``week``. Updates the per-test rows (``TestWeek``)
+    and the per-component totals (``ProjectWeek``); a test counts towards ``ProjectWeek.tests`` when this
+    job gave it its first run of the week. Must run in the transaction that wrote the results.
     """
     if not counts:
         return
-    insert = f"INSERT INTO ingest_testweek (project_id, test_case_id, week, {_ROLLUP_COLUMNS})"
     with connection.cursor() as cursor:
         if connection.vendor == "postgresql":
-            # One JSON parameter: serialised in C, unpacked by the server (cheaper than nine arrays).
+            # One statement, one JSON parameter (serialised in C, unpacked by the server). The per-test upsert
+            # returns each row's runs after the addition: equal to this job's runs means the job added the
+            # test's first run of the week (exact under concurrent jobs: the upsert reads the committed row).
+            sums = ", ".join(f"SUM(d.{f})" for f in _ROLLUP_FIELDS)
             cursor.execute(
-                insert + " SELECT %s, d.t, %s::date, d.runs, d.passed, d.failed, d.errors, d.skipped, d.reruns,"
-                " d.duration_total, d.duration_count"
-                " FROM json_to_recordset(%s::json) AS d(t bigint, runs int, passed int, failed int, errors int,"
-                " skipped int, reruns int, duration_total float8, duration_count int)" + _ROLLUP_ADD,
-                [project_id, week, json.dumps([
-                    {"t": tc, "runs": c[0], "passed": c[1], "failed": c[2], "errors": c[3], "skipped": c[4],
-                     "reruns": c[5], "duration_total": c[6], "duration_count": c[7]}
-                    for tc, c in counts.items()
-                ])],
+                "WITH d AS (SELECT * FROM json_to_recordset(%s::json) AS d(t bigint, runs int, passed int,"
+                " failed int, errors int, skipped int, reruns int, duration_total float8, duration_count int)),"
+                f" tw AS (INSERT INTO ingest_testweek (project_id, test_case_id, week, {_ROLLUP_COLUMNS})"
+                f" SELECT %s, d.t, %s::date, {', '.join('d.' + f for f in _ROLLUP_FIELDS)} FROM d"
+                + _TESTWEEK_ADD + " RETURNING test_case_id, runs)"
+                + _PROJECTWEEK_INSERT
+                + f" SELECT %s, %s::date, COALESCE(c.component_id, 0),"
+                f" SUM(CASE WHEN tw.runs = d.runs THEN 1 ELSE 0 END), {sums}"
+                " FROM d JOIN tw ON tw.test_case_id = d.t JOIN ingest_testcase c ON c.id = d.t"
+                " GROUP BY COALESCE(c.component_id, 0)" + _PROJECTWEEK_ADD,
+                [json.dumps([{"t": tc, **dict(zip(_ROLLUP_FIELDS, c, strict=True))} for tc, c in counts.items()]),
+                 project_id, week, project_id, week],
             )
-        else:
-            week_db = connection.ops.adapt_datefield_value(week)
-            cursor.executemany(
-                insert + " VALUES (%s, %s, %s, %s, %s, %s, %s, %s, %s, %s, %s)" + _ROLLUP_ADD,
-                [(project_id, tc, week_db, *c) for tc, c in counts.items()],
+            return
+        week_db = connection.ops.adapt_datefield_value(week)
+        known: dict[int, tuple[int, bool]] = {}  # test case id → (component key, already ran this week)
+        ids = list(counts)
+        for start in range(0, len(ids), 500):
+            chunk = ids[start : start + 500]
+            cursor.execute(
+                "SELECT c.id, COALESCE(c.component_id, 0), w.id FROM ingest_testcase c LEFT JOIN ingest_testweek w"
+                f" ON w.test_case_id = c.id AND w.week = %s WHERE c.id IN ({', '.join(['%s'] * len(chunk))})",
+                [week_db, *chunk],
             )
+            known.update((tc, (comp, w is not None)) for tc, comp, w in cursor.fetchall())
+        cursor.executemany(
+            f"INSERT INTO ingest_testweek (project_id, test_case_id, week, {_ROLLUP_COLUMNS})"
+            " VALUES (%s, %s, %s, %s, %s, %s, %s, %s, %s, %s, %s)" + _TESTWEEK_ADD,
+            [(project_id, tc, week_db, *c) for tc, c in counts.items()],
+        )
+        totals: dict[int, list] = {}
+        for tc, c in counts.items():
+            comp, ran_before = known[tc]
+            total = totals.setdefault(comp, [0] * (len(_ROLLUP_FIELDS) + 1))
+            total[0] += 0 if ran_before else 1
+            for i, value in enumerate(c, start=1):
+                total[i] += value
+        cursor.executemany(
+            _PROJECTWEEK_INSERT + " VALUES (%s, %s, %s, %s, %s, %s, %s, %s, %s, %s, %s, %s)" + _PROJECTWEEK_ADD,
+            [(project_id, week_db, comp, *t) for comp, t in totals.items()],
+        )
+
+
+#: ``ProjectWeek`` rows recomputed from ``TestWeek`` (the rebuild; ``{where}`` filters ``w``).
+_PROJECTWEEK_FROM_TESTWEEK = (
+    _PROJECTWEEK_INSERT
+    + " SELECT w.project_id, w.week, COALESCE(c.component_id, 0), SUM(CASE WHEN w.runs > 0 THEN 1 ELSE 0 END), "
+    + ", ".join(f"SUM(w.{f})" for f in _ROLLUP_FIELDS)
+    + " FROM ingest_testweek w JOIN ingest_testcase c ON c.id = w.test_case_id {where}"
+    " GROUP BY w.project_id, w.week, COALESCE(c.component_id, 0)"
+)
+
+
+def project_weeks_rebuild(*, project_id: int, week=None) -> None:
+    """Recompute the per-component weekly totals of a project (or one week) from the per-test rollup.
+
+    Called by whatever re-assigns test components (the totals are kept per component) and by
+    :func:`rollup_rebuild`. Its cost grows with tests × weeks: an administrative step, not a per-build one.
+    """
+    where, params = "WHERE w.project_id = %s", [project_id]
+    if week is not None:
+        where += " AND w.week = %s"
+        params.append(connection.ops.adapt_datefield_value(week))
+    with transaction.atomic(), connection.cursor() as cursor:
+        cursor.execute(
+            "DELETE FROM ingest_projectweek WHERE project_id = %s" + (" AND week = %s" if week is not None else ""),
+            params,
+        )
+        cursor.execute(_PROJECTWEEK_FROM_TESTWEEK.format(where=where), params)
 
 
 def rollup_rebuild(*, project: Project, week=None) -> None:
-    """Recompute the rollup of a project (or one week of it) from the results table."""
+    """Recompute the rollups of a project (or one week of it) from the results table."""
     from ingest.models import TestWeek
 
     with transaction.atomic():
@@ -674,6 +735,7 @@ def rollup_rebuild(*, project: Project, week=None) -> None:
             cursor.execute(
                 _ROLLUP_INSERT + _ROLLUP_SELECT + where + " GROUP BY r.project_id, r.test_case_id, b.week", params
             )
+        project_weeks_rebuild(project_id=project.id, week=week)
 
 
 # --------------------------------------------------------------------------------------------------- reprocess

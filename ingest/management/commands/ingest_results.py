@@ -24,7 +24,7 @@ MANIFEST_COLUMNS = ("build", "file", "commit", "branch", "started", "ci_job")
 ERR_MANIFEST_COLUMNS = "{name}: the manifest needs the columns build and file (found: {found})"
 ERR_MANIFEST_ROW = "{name}, row {row}: {reason}"
 #: Analysed at the end of a backfill (PostgreSQL): the tables the dashboard's queries read.
-ANALYZE_TABLES = ("ingest_testresult", "ingest_testweek", "ingest_testcase", "ingest_build")
+ANALYZE_TABLES = ("ingest_testresult", "ingest_testweek", "ingest_projectweek", "ingest_testcase", "ingest_build")
 
 
 def manifest_read(path: Path) -> list[dict]:
