@@ -84,7 +84,8 @@ class ComponentRule(models.Model):
 class TestCase(models.Model):
     __test__ = False  # not a pytest test class
 
-    project = models.ForeignKey(Project, on_delete=models.CASCADE, related_name="test_cases")
+    # Covered by the unique (project, classname, name) index: no index of its own.
+    project = models.ForeignKey(Project, on_delete=models.CASCADE, related_name="test_cases", db_index=False)
     classname = models.CharField(max_length=500, blank=True)
     name = models.CharField(max_length=500)
     file = models.CharField(max_length=500, blank=True)
@@ -147,9 +148,11 @@ class Outcome(models.TextChoices):
 class TestResult(models.Model):
     __test__ = False
 
-    project = models.ForeignKey(Project, on_delete=models.CASCADE, related_name="+")
-    build = models.ForeignKey(Build, on_delete=models.CASCADE, related_name="results")
-    test_case = models.ForeignKey(TestCase, on_delete=models.CASCADE, related_name="results")
+    # No single-column index on the foreign keys: each leads one of the composite indexes below, and every
+    # index costs the bulk load of results time.
+    project = models.ForeignKey(Project, on_delete=models.CASCADE, related_name="+", db_index=False)
+    build = models.ForeignKey(Build, on_delete=models.CASCADE, related_name="results", db_index=False)
+    test_case = models.ForeignKey(TestCase, on_delete=models.CASCADE, related_name="results", db_index=False)
     outcome = models.CharField(max_length=7, choices=Outcome.choices)
     duration = models.FloatField(null=True, blank=True, help_text="Seconds.")
     attempt = models.PositiveSmallIntegerField(default=1, help_text="1 for the first run in a build; reruns 2, 3…")
@@ -162,7 +165,7 @@ class TestResult(models.Model):
         default=dict, blank=True, help_text="Field → original length, for each field cut to its size cap."
     )
     signature = models.CharField(
-        max_length=32, blank=True, db_index=True, help_text="Failure-cause signature key (failures only)."
+        max_length=32, blank=True, help_text="Failure-cause signature key (failures only)."
     )
 
     class Meta:
@@ -170,6 +173,7 @@ class TestResult(models.Model):
             models.Index(fields=["test_case", "build"]),
             models.Index(fields=["build", "outcome"]),
             models.Index(fields=["project", "outcome"]),
+            models.Index(fields=["signature"], name="ingest_testresult_signature"),  # equality only, no LIKE
         ]
 
     def __str__(self) -> str:
@@ -177,12 +181,20 @@ class TestResult(models.Model):
 
 
 class TestWeek(models.Model):
-    """Per-test, per-week rollup kept up to date by ingest: pages read this, not the results table."""
+    """Per-test, per-week rollup kept up to date by ingest: pages read this, not the results table.
+
+    Derived data (``rollup_rebuild`` recomputes it from the results), so its foreign keys are not database
+    constraints: a constraint trigger per written row more than doubled the rollup's share of each import.
+    Deletes still cascade (Django's collector), and the single-column indexes are covered by the composite
+    ones.
+    """
 
     __test__ = False
 
-    project = models.ForeignKey(Project, on_delete=models.CASCADE, related_name="+")
-    test_case = models.ForeignKey(TestCase, on_delete=models.CASCADE, related_name="weeks")
+    project = models.ForeignKey(Project, on_delete=models.CASCADE, related_name="+", db_index=False,
+                                db_constraint=False)
+    test_case = models.ForeignKey(TestCase, on_delete=models.CASCADE, related_name="weeks", db_index=False,
+                                  db_constraint=False)
     week = models.DateField()
     runs = models.IntegerField(default=0)
     passed = models.IntegerField(default=0)
