@@ -5,9 +5,10 @@ from __future__ import annotations
 from collections.abc import Iterable
 
 import pandas as pd
+from django.db import connection
 
 from analytics.models import TestHealth, TriageEvent, TriageState
-from ingest.models import TestCase, TestResult
+from ingest.models import Build, TestCase, TestResult
 
 
 def runs_frame(
@@ -15,26 +16,72 @@ def runs_frame(
 ) -> pd.DataFrame:
     """One row per attempt, with the build's commit, branch and start: the flaky detector's input.
 
-    ``since`` / ``until`` keep builds started at or after / at or before those moments.
+    ``since`` / ``until`` keep builds started at or after / at or before those moments. Columns:
+    ``test_id``, ``build_id``, ``commit``, ``branch``, ``started_at`` (UTC), ``attempt``, ``outcome``,
+    ``duration`` (float, NaN when unknown), ``failure_type``, ``message``; rows in no particular order.
+
+    Two raw queries rather than the ORM, because this runs after every ingested build over up to 90 days
+    of history: the window's builds once, then only the result columns per row, so that no datetime or
+    commit string is built per result. The build columns are joined on in pandas.
     """
-    qs = TestResult.objects.filter(project_id=project_id)
-    if test_ids is not None:
-        qs = qs.filter(test_case_id__in=list(test_ids))
+    q = connection.ops.quote_name
+    builds_table, results_table = q(Build._meta.db_table), q(TestResult._meta.db_table)
+    postgres = connection.vendor == "postgresql"
+    # PostgreSQL: the start as integer microseconds since the epoch (exact, nothing parsed per row).
+    # SQLite stores it as UTC text, parsed below in one vectorised call.
+    started = "(extract(epoch from b.started_at) * 1000000)::bigint" if postgres else "b.started_at"
+    where, params = ["b.project_id = %s"], [project_id]
     if since is not None:
-        qs = qs.filter(build__started_at__gte=since)
+        where.append("b.started_at >= %s")
+        params.append(connection.ops.adapt_datetimefield_value(since))
     if until is not None:
-        qs = qs.filter(build__started_at__lte=until)
-    rows = qs.values_list(
-        "test_case_id", "build_id", "build__commit", "build__branch", "build__started_at", "attempt", "outcome",
-        "duration", "failure_type", "message",
+        where.append("b.started_at <= %s")
+        params.append(connection.ops.adapt_datetimefield_value(until))
+    build_filter = " AND ".join(where)
+    result_filter = " AND ".join(["r.project_id = %s", *where[1:]])
+    result_params = list(params)
+    if test_ids is not None:
+        ids = sorted({int(i) for i in test_ids})
+        if postgres:
+            result_filter += " AND r.test_case_id = ANY(%s)"
+            result_params.append(ids)
+        else:
+            result_filter += f" AND r.test_case_id IN ({', '.join(['%s'] * len(ids)) or 'NULL'})"
+            result_params.extend(ids)
+    with connection.cursor() as cursor:
+        cursor.execute(f"SELECT b.id, b.{q('commit')}, b.branch, {started} FROM {builds_table} b WHERE {build_filter}", params)
+        build_rows = cursor.fetchall()
+        cursor.execute(
+            "SELECT r.test_case_id, r.build_id, r.attempt, r.outcome, r.duration, r.failure_type, r.message "
+            f"FROM {results_table} r JOIN {builds_table} b ON b.id = r.build_id WHERE {result_filter}",
+            result_params,
+        )
+        result_rows = cursor.fetchall()
+    builds = pd.DataFrame.from_records(build_rows, columns=["build_id", "commit", "branch", "started_at"])
+    if postgres:
+        starts = pd.to_datetime(builds["started_at"].astype("int64"), unit="us", utc=True)
+    else:
+        starts = pd.to_datetime(builds["started_at"], utc=True, format="ISO8601")
+    builds["started_at"] = starts.astype("datetime64[us, UTC]")
+    results = pd.DataFrame.from_records(
+        result_rows,
+        columns=["test_id", "build_id", "attempt", "outcome", "duration", "failure_type", "message"],
     )
-    frame = pd.DataFrame.from_records(
-        list(rows),
-        columns=["test_id", "build_id", "commit", "branch", "started_at", "attempt", "outcome", "duration",
-                 "failure_type", "message"],
+    of_build = builds.iloc[pd.Index(builds["build_id"]).get_indexer(results["build_id"])].reset_index(drop=True)
+    frame = pd.DataFrame(
+        {
+            "test_id": results["test_id"],
+            "build_id": results["build_id"],
+            "commit": of_build["commit"],
+            "branch": of_build["branch"],
+            "started_at": of_build["started_at"],
+            "attempt": results["attempt"],
+            "outcome": results["outcome"],
+            "duration": results["duration"].astype(float),
+            "failure_type": results["failure_type"],
+            "message": results["message"],
+        }
     )
-    frame["started_at"] = pd.to_datetime(frame["started_at"], utc=True)
-    frame["duration"] = frame["duration"].astype(float)
     return frame
 
 

@@ -39,6 +39,18 @@ def _jsonable(value):
     return None if math.isnan(number) or math.isinf(number) else number
 
 
+def recent_outcomes(runs: pd.DataFrame, *, last: int = 20) -> pd.Series:
+    """Per test, its latest ``last`` runs (oldest first) as one letter each: P, F, E, S (skipped)."""
+    latest = (
+        runs.sort_values(["test_id", "started_at", "build_id", "attempt"], kind="stable")
+        .groupby("test_id", sort=False)
+        .tail(last)
+    )
+    codes, outcomes = pd.factorize(latest["outcome"])
+    letters = pd.Series([str(o)[0].upper() for o in outcomes], dtype=object).to_numpy()[codes]
+    return pd.Series(letters, index=latest.index).groupby(latest["test_id"]).agg("".join)
+
+
 def flaky_scores_refresh(
     *, project_id: int, test_ids: Iterable[int] | None = None, now: datetime | None = None
 ) -> int:
@@ -86,11 +98,7 @@ def flaky_scores_refresh(
     if runs.empty:
         return 0
     scored = score_tests(runs, now=now, labels=labels if len(labels) else None, random_state=RANDOM_STATE)
-    recent = (
-        runs.sort_values(["started_at", "build_id", "attempt"])
-        .groupby("test_id")["outcome"]
-        .apply(lambda s: "".join(o[0].upper() for o in s.tail(20)))
-    )
+    recent = recent_outcomes(runs)
     computed_at = timezone.now()
     objs = []
     for test_id, row in scored.iterrows():
