@@ -70,8 +70,8 @@ def ingest_rows(project_id: int, rows: list[dict], *, build_prefix: str = "") ->
     return {"results": written, "builds": len(builds), "store_seconds": store_s, "run_seconds": run_s}
 
 
-INGEST_TABLES = ("ingest_testresult", "ingest_testweek", "ingest_importedreport", "ingest_storedfile",
-                 "ingest_importjob", "ingest_build", "ingest_testcase")
+INGEST_TABLES = ("ingest_testresult", "ingest_testweek", "ingest_projectweek", "ingest_importedreport",
+                 "ingest_storedfile", "ingest_importjob", "ingest_build", "ingest_testcase")
 
 
 def ingest_tables_empty() -> None:
