@@ -12,8 +12,9 @@ from dataclasses import dataclass
 from datetime import UTC, date, datetime, time, timedelta
 
 import pandas as pd
-from django.db.models import Count, Exists, F, FloatField, OuterRef, Q, QuerySet, Subquery, Sum
-from django.db.models.functions import Cast, NullIf, TruncWeek
+from django.db import connection
+from django.db.models import Count, Exists, F, OuterRef, Q, QuerySet, Subquery, Sum
+from django.db.models.functions import TruncWeek
 
 from analytics.models import TestHealth
 from ingest.models import Build, Component, Defect, ProjectWeek, TestWeek, week_start
@@ -203,34 +204,50 @@ def defect_flow_frame(scope: Scope, *, weeks: int = TREND_WEEKS) -> pd.DataFrame
     return frame.reset_index()
 
 
+_GROWTH_SQL = """
+WITH per_test AS (
+    SELECT w.test_case_id AS id,
+           SUM(CASE WHEN w.week >= %(recent_from)s THEN w.duration_total END) * 1.0
+             / NULLIF(SUM(CASE WHEN w.week >= %(recent_from)s THEN w.duration_count END), 0) AS recent,
+           SUM(CASE WHEN w.week < %(recent_from)s THEN w.duration_total END) * 1.0
+             / NULLIF(SUM(CASE WHEN w.week < %(recent_from)s THEN w.duration_count END), 0) AS before
+    FROM ingest_testweek w {component_join}
+    WHERE w.project_id = %(project)s AND w.week >= %(before_from)s AND w.week <= %(week)s AND w.duration_count > 0
+    GROUP BY w.test_case_id
+), top AS (
+    SELECT id, before, recent, recent - before AS growth FROM per_test
+    WHERE recent IS NOT NULL AND before IS NOT NULL AND recent - before > 0
+    ORDER BY growth DESC, id
+    LIMIT %(top)s
+)
+SELECT top.id, t.classname, t.name, c.name, top.before, top.recent, top.growth
+FROM top JOIN ingest_testcase t ON t.id = top.id LEFT JOIN ingest_component c ON c.id = t.component_id
+ORDER BY top.growth DESC, top.id
+"""
+
+
 def duration_growth_frame(scope: Scope, *, window: int = GROWTH_WINDOW, top: int = GROWTH_TOP) -> pd.DataFrame:
     """Tests whose mean run time grew most: the last ``window`` weeks up to ``scope.week`` against the
     ``window`` weeks before. Columns: test_id, test, component, before, recent, growth (seconds per run).
+
+    One statement that ranks by test id first and joins names to the ``top`` rows only: its cost grows with
+    tests × 2 ``window`` weeks of the rollup, never with the history beyond them.
     """
     recent_from = scope.week - timedelta(weeks=window - 1)
-    before_from = recent_from - timedelta(weeks=window)
-    in_recent = Q(week__gte=recent_from)
-    in_before = Q(week__lt=recent_from)
-    rows = (
-        _testweeks(scope)
-        .filter(week__gte=before_from, week__lte=scope.week, duration_count__gt=0)
-        .values("test_case_id", "test_case__classname", "test_case__name", "test_case__component__name")
-        .annotate(
-            recent=Cast(Sum("duration_total", filter=in_recent), FloatField())
-            / NullIf(Sum("duration_count", filter=in_recent), 0),
-            before=Cast(Sum("duration_total", filter=in_before), FloatField())
-            / NullIf(Sum("duration_count", filter=in_before), 0),
-        )
-        .filter(recent__isnull=False, before__isnull=False)
-        .annotate(growth=F("recent") - F("before"))
-        .filter(growth__gt=0)
-        .order_by("-growth", "test_case_id")[:top]
-    )
+    adapt = connection.ops.adapt_datefield_value
+    params = {"recent_from": adapt(recent_from), "before_from": adapt(recent_from - timedelta(weeks=window)),
+              "week": adapt(scope.week), "project": scope.project_id, "top": top}
+    component_join = ""
+    if scope.component_id is not None:
+        component_join = "JOIN ingest_testcase tc ON tc.id = w.test_case_id AND tc.component_id = %(component)s"
+        params["component"] = scope.component_id
+    with connection.cursor() as cursor:
+        cursor.execute(_GROWTH_SQL.format(component_join=component_join), params)
+        rows = cursor.fetchall()
     frame = pd.DataFrame.from_records(
-        [(r["test_case_id"], r["test_case__classname"], r["test_case__name"], r["test_case__component__name"],
-          r["before"], r["recent"], r["growth"]) for r in rows],
-        columns=["test_id", "classname", "name", "component", "before", "recent", "growth"],
+        rows, columns=["test_id", "classname", "name", "component", "before", "recent", "growth"]
     )
+    frame[["before", "recent", "growth"]] = frame[["before", "recent", "growth"]].astype(float)
     frame["test"] = [f"{c}::{n}" if c else n for c, n in zip(frame["classname"], frame["name"])]
     frame["component"] = frame["component"].fillna(NO_COMPONENT)
     return frame[["test_id", "test", "component", "before", "recent", "growth"]]

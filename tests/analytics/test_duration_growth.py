@@ -1,0 +1,75 @@
+"""The overview's "tests whose run time grew" against a recomputation from the raw results with pandas
+(mean duration per test over the last 4 weeks vs the 4 weeks before: the definition the page states)."""
+
+from __future__ import annotations
+
+import io
+from datetime import date, timedelta
+
+import pandas as pd
+import pytest
+
+from analytics.selectors_overview import GROWTH_WINDOW, Scope, duration_growth_frame
+from ingest.models import Component, ComponentRule, Project, TestResult
+from ingest.services.results import BuildMeta, results_job_create, results_job_run
+
+pytestmark = pytest.mark.django_db
+
+WEEK = date(2026, 11, 23)  # a Monday
+
+
+def _import(project: Project, build: str, day: date, durations: dict[tuple[str, str], float | None]) -> None:
+    cases = "".join(
+        f'<testcase classname="{c}" name="{n}"' + (f' time="{d}"/>' if d is not None else "/>")
+        for (c, n), d in durations.items()
+    )
+    job = results_job_create(project=project, files=[("r.xml", io.BytesIO(f"<testsuite>{cases}</testsuite>".encode()))],
+                             meta=BuildMeta(build=build, started=f"{day.isoformat()}T06:00:00Z"), via="cli")
+    results_job_run(job=job, refresh=False)
+
+
+def _reference(project: Project, week: date, component: str | None = None) -> pd.DataFrame:
+    rows = TestResult.objects.filter(project=project, duration__isnull=False).values_list(
+        "test_case_id", "build__week", "duration", "test_case__component__name")
+    frame = pd.DataFrame(list(rows), columns=["test_id", "week", "duration", "component"])
+    if component is not None:
+        frame = frame[frame["component"] == component]
+    recent_from = week - timedelta(weeks=GROWTH_WINDOW - 1)
+    before_from = recent_from - timedelta(weeks=GROWTH_WINDOW)
+    recent = frame[(frame["week"] >= recent_from) & (frame["week"] <= week)].groupby("test_id")["duration"].mean()
+    before = frame[(frame["week"] >= before_from) & (frame["week"] < recent_from)].groupby("test_id")["duration"].mean()
+    growth = (recent - before).dropna()
+    growth = growth[growth > 0]
+    return growth.sort_values(ascending=False, kind="stable")
+
+
+@pytest.fixture
+def project():
+    project = Project.objects.create(slug="marina", name="Marina")
+    docks = Component.objects.create(project=project, name="Docks")
+    ComponentRule.objects.create(project=project, classname_prefix="docks.", component=docks)
+    tests = [("docks.api", f"test_{i}") for i in range(6)] + [("billing", f"test_{i}") for i in range(6)]
+    for k in range(12):  # twelve weekly builds, two runs a week for some tests
+        day = WEEK - timedelta(weeks=11 - k)
+        base = {t: 1.0 + i * 0.1 + k * 0.013 * (i - 4) for i, t in enumerate(tests)}  # distinct slopes
+        base[tests[3]] = None  # a test that never reports a time
+        _import(project, f"b{k}", day, base)
+        if k % 3 == 0:
+            _import(project, f"b{k}x", day + timedelta(days=2), {t: 5.0 for t in tests[:2]})
+    return project
+
+
+def test_growth_equals_the_raw_results_recomputation(project):
+    got = duration_growth_frame(Scope(project.pk, WEEK), top=50)
+    want = _reference(project, WEEK)
+    assert list(got["test_id"]) == list(want.index)
+    assert got["growth"].to_numpy() == pytest.approx(want.to_numpy(), rel=1e-9)
+    assert (got["recent"] - got["before"]).to_numpy() == pytest.approx(got["growth"].to_numpy(), rel=1e-9)
+
+
+def test_top_and_component_scope(project):
+    docks = Component.objects.get(name="Docks")
+    got = duration_growth_frame(Scope(project.pk, WEEK, docks.pk), top=2)
+    want = _reference(project, WEEK, component="Docks")
+    assert list(got["test_id"]) == list(want.index[:2])
+    assert set(got["component"]) == {"Docks"} and all(t.startswith("docks.api::") for t in got["test"])
