@@ -19,7 +19,7 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .metrics import flip_rate, outcome_entropy, runs_test, weighted_flakiness
+from .metrics import _RUNS_CORRECTION_BELOW
 
 __all__ = [
     "BAD_CONFIG",
@@ -91,6 +91,18 @@ EVIDENCE_COLUMNS = (
     "scattered_episodes",
 )
 
+# Evidence of a test without any counted run (see metrics: flip rate, entropy and runs test of an empty
+# sequence are 0, 0 and (0, 1)).
+_EMPTY_HISTORY: dict[str, object] = {
+    "first_failure_at": np.datetime64("NaT"),
+    "last_failure_at": np.datetime64("NaT"),
+    "first_failure_commit": "",
+    "streak_start_commit": "",
+    "runs_p": 1.0,
+    "duration_cv": np.nan,
+    "sufficient": False,
+    "failing_now": False,
+}
 _TIMEOUT = re.compile(r"time[d\s_-]*out", re.IGNORECASE)
 _HEX = re.compile(r"0x[0-9a-f]+")
 _DIGITS = re.compile(r"\d+")
@@ -199,139 +211,244 @@ def _validated(runs: pd.DataFrame, now: pd.Timestamp) -> tuple[pd.DataFrame, pd.
     return frame, now
 
 
-def _episodes(fail_touching: np.ndarray) -> np.ndarray:
-    """Lengths of the maximal blocks of ``True`` in a boolean sequence."""
-    if not fail_touching.any():
-        return np.zeros(0, dtype=int)
-    padded = np.concatenate(([0], fail_touching.astype(np.int8), [0]))
-    edges = np.diff(padded)
-    return np.flatnonzero(edges == -1) - np.flatnonzero(edges == 1)
+def _pair_codes(outer: np.ndarray, inner: np.ndarray) -> np.ndarray:
+    """Codes of the distinct ``(outer, inner)`` pairs of two non-negative integer arrays, numbered in
+    order of first appearance (so, for rows sorted by ``outer``, each outer value gets a contiguous range
+    of codes, ordered by first appearance within it)."""
+    if outer.size == 0:
+        return np.zeros(0, dtype=np.int64)
+    width = np.int64(inner.max()) + 1
+    codes, _ = pd.factorize(outer.astype(np.int64) * width + inner.astype(np.int64))
+    return codes.astype(np.int64)
 
 
-def _episodes_with_starts(fail_touching: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Lengths and start indices of the maximal blocks of ``True`` in a boolean sequence."""
-    if not fail_touching.any():
-        return np.zeros(0, dtype=int), np.zeros(0, dtype=int)
-    padded = np.concatenate(([0], fail_touching.astype(np.int8), [0]))
-    edges = np.diff(padded)
-    starts = np.flatnonzero(edges == 1)
-    return np.flatnonzero(edges == -1) - starts, starts
+def _owner(codes: np.ndarray, values: np.ndarray, size: int) -> np.ndarray:
+    """``values`` of one row of each code (all rows of a code share the value)."""
+    out = np.zeros(size, dtype=values.dtype)
+    out[codes] = values
+    return out
 
 
-def _longest_streak(y: np.ndarray) -> tuple[int, int]:
-    """Length of the longest block of failures and start index of the last block (-1 if none)."""
-    lengths = _episodes(y.astype(bool))
-    if lengths.size == 0:
-        return 0, -1
-    padded = np.concatenate(([0], y, [0]))
-    starts = np.flatnonzero(np.diff(padded) == 1)
-    return int(lengths.max()), int(starts[-1])
+def _first_row(codes: np.ndarray, size: int) -> np.ndarray:
+    """Index of the first row of each code."""
+    first = np.zeros(size, dtype=np.int64)
+    rows = np.arange(codes.size, dtype=np.int64)
+    first[codes[::-1]] = rows[::-1]  # the last write, i.e. the smallest row index, wins
+    return first
 
 
-def _version_keys(commit: np.ndarray, build_id: np.ndarray) -> np.ndarray:
-    # A run without a commit is its own build's version.
-    return np.array([c if c else f"build {b}" for c, b in zip(commit, build_id, strict=True)], dtype=object)
+def _blocks(flag: np.ndarray, group: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Start and end (inclusive) positions of the maximal blocks of ``True`` in ``flag`` that do not
+    cross a change of ``group`` (both arrays in sequence order)."""
+    if flag.size == 0:
+        return np.zeros(0, dtype=np.int64), np.zeros(0, dtype=np.int64)
+    new_group = np.concatenate(([True], group[1:] != group[:-1]))
+    last_of_group = np.concatenate((new_group[1:], [True]))
+    prev = np.concatenate(([False], flag[:-1]))
+    nxt = np.concatenate((flag[1:], [False]))
+    starts = np.flatnonzero(flag & (~prev | new_group))
+    ends = np.flatnonzero(flag & (~nxt | last_of_group))
+    return starts, ends
 
 
-def _one_test(g: dict[str, np.ndarray], skipped: int, config: EvidenceConfig) -> dict[str, object]:
-    y = np.isin(g["outcome"], FAILED_OUTCOMES).astype(np.int8)
-    n = int(y.size)
-    failures = int(y.sum())
-    row: dict[str, object] = {
+def _tuples(owner: np.ndarray, items: list[object], size: int) -> list[tuple[object, ...]]:
+    """One tuple per owner in ``range(size)``, holding its ``items`` in order (``owner`` sorted)."""
+    out: list[tuple[object, ...]] = [()] * size
+    if not items:
+        return out
+    bounds = np.flatnonzero(owner[1:] != owner[:-1]) + 1
+    for s, e in zip(np.concatenate(([0], bounds)), np.concatenate((bounds, [owner.size])), strict=True):
+        out[int(owner[s])] = tuple(items[s:e])
+    return out
+
+
+def _per_test(columns: dict[str, np.ndarray], config: EvidenceConfig) -> tuple[np.ndarray, dict[str, object]]:
+    """Evidence columns (without ``skipped`` and the failure-rate interval) of every test with runs.
+
+    ``columns`` hold the counted runs, sorted by test and then in run order. Returns the test ids and one
+    array (or list) per column, in the same order. Everything is computed on whole columns with per-test
+    group codes, so the cost per run is a few vectorised operations.
+    """
+    tid = columns["test_id"]
+    n_rows = tid.size
+    if n_rows:
+        boundaries = np.flatnonzero(tid[1:] != tid[:-1]) + 1
+        starts = np.concatenate(([0], boundaries)).astype(np.int64)
+    else:
+        starts = np.zeros(0, dtype=np.int64)
+    n_tests = starts.size
+    ends = np.concatenate((starts[1:], [n_rows])).astype(np.int64)
+    n = ends - starts
+    group = np.repeat(np.arange(n_tests, dtype=np.int64), n)
+    outcome = columns["outcome"]
+    y = (pd.Series(outcome, dtype=object).isin(FAILED_OUTCOMES)).to_numpy().astype(np.int8)
+    failures = np.bincount(group, weights=y, minlength=n_tests).astype(np.int64)
+    out: dict[str, object] = {
         "runs": n,
         "failures": failures,
         "passes": n - failures,
-        "skipped": skipped,
         "sufficient": n >= config.min_runs,
     }
-    versions = _version_keys(g["commit"], g["build_id"])
-    codes, labels = pd.factorize(versions)  # codes follow first appearance, i.e. time order
-    n_versions = len(labels)
-    builds, _ = pd.factorize(g["build_id"])
-    n_builds = int(builds.max() + 1) if n else 0
-    row["builds"] = n_builds
-    row["versions"] = n_versions
+
+    # Versions: a run without a commit is its own build's version.
+    commit, build_id = columns["commit"], columns["build_id"]
+    keys = commit.astype(object).copy()
+    no_commit = keys == ""
+    if no_commit.any():
+        keys[no_commit] = ("build " + pd.Series(build_id[no_commit]).astype(str)).to_numpy(dtype=object)
+    key_codes, _ = pd.factorize(keys)
+    version = _pair_codes(group, key_codes)  # per test, in order of first run
+    n_all_versions = int(version.max()) + 1 if n_rows else 0
+    version_test = _owner(version, group, n_all_versions)
+    versions = np.bincount(version_test, minlength=n_tests)
+    build = _pair_codes(group, pd.factorize(build_id)[0])
+    n_all_builds = int(build.max()) + 1 if n_rows else 0
+    build_test = _owner(build, group, n_all_builds)
+    out["builds"] = np.bincount(build_test, minlength=n_tests)
+    out["versions"] = versions
 
     # Within-version flip rate and entropy, then the across-version weighted average [1].
-    counts = np.bincount(codes, minlength=n_versions)
-    fails_v = np.bincount(codes, weights=y, minlength=n_versions)
-    order = np.argsort(codes, kind="stable")
-    ys, cs = y[order], codes[order]
+    counts = np.bincount(version, minlength=n_all_versions)
+    fails_v = np.bincount(version, weights=y, minlength=n_all_versions)
+    order = np.argsort(version, kind="stable")
+    ys, cs = y[order], version[order]
     changed = (np.diff(ys) != 0) & (np.diff(cs) == 0)
-    flips_v = np.bincount(cs[1:][changed], minlength=n_versions)
-    flip_v = np.divide(flips_v, counts - 1, out=np.zeros(n_versions), where=counts > 1)
+    flips_v = np.bincount(cs[1:][changed], minlength=n_all_versions)
+    flip_v = np.divide(flips_v, counts - 1, out=np.zeros(n_all_versions), where=counts > 1)
     p_v = fails_v / np.maximum(counts, 1)
     with np.errstate(divide="ignore", invalid="ignore"):
         ent_v = -(p_v * np.log2(p_v) + (1 - p_v) * np.log2(1 - p_v))
     ent_v = np.nan_to_num(ent_v, nan=0.0)
-    row["flip_rate"] = weighted_flakiness(flip_v, lam=config.lam)
-    row["entropy"] = weighted_flakiness(ent_v, lam=config.lam)
-    row["history_flip_rate"] = flip_rate(y)
-    row["history_entropy"] = outcome_entropy(y)
-    row["runs_z"], row["runs_p"] = runs_test(y)
+    # weighted_flakiness per test: weight (1 - lam) ** (versions after this one).
+    first_version = np.concatenate(([0], np.cumsum(versions)[:-1])).astype(np.int64)
+    position = np.arange(n_all_versions, dtype=np.int64) - first_version[version_test]
+    weights = (1.0 - config.lam) ** (versions[version_test] - 1 - position)
+    weight_sum = np.bincount(version_test, weights=weights, minlength=n_tests)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        for name, values in (("flip_rate", flip_v), ("entropy", ent_v)):
+            total = np.bincount(version_test, weights=weights * values, minlength=n_tests)
+            out[name] = np.where(versions > 0, total / weight_sum, 0.0)
+
+    # Whole-history flip rate, entropy and runs test (see metrics.flip_rate, outcome_entropy, runs_test).
+    same_test = group[1:] == group[:-1]
+    changes = np.bincount(group[1:][(y[1:] != y[:-1]) & same_test], minlength=n_tests)
+    nf = n.astype(float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out["history_flip_rate"] = np.where(n >= 2, changes / (nf - 1), 0.0)
+        p = failures / nf
+        mixed_history = (failures > 0) & (failures < n)
+        entropy = -p * np.log2(p) - (1.0 - p) * np.log2(1.0 - p)
+        out["history_entropy"] = np.where(mixed_history, entropy, 0.0)
+        product = (failures * (n - failures)).astype(float)
+        mean = 2.0 * product / nf + 1.0
+        var = 2.0 * product * (2.0 * product - nf) / nf**2 / (nf - 1.0)
+        deviation = (1 + changes) - mean
+        corrected = np.where(
+            deviation > 0.5, deviation - 0.5, np.where(deviation < 0.5, deviation + 0.5, 0.0)
+        )
+        numerator = np.where(nf >= _RUNS_CORRECTION_BELOW, deviation, corrected)
+        testable = mixed_history & (var > 0.0)
+        z = np.where(testable, numerator / np.sqrt(np.where(testable, var, 1.0)), 0.0)
+    out["runs_z"] = z
+    out["runs_p"] = np.where(testable, 2.0 * stats.norm.sf(np.abs(z)), 1.0)
 
     mixed = (fails_v > 0) & (fails_v < counts)
-    row["same_commit_contradictions"] = int(mixed.sum())
-    row["contradiction_commits"] = tuple(str(v) for v in labels[mixed])
+    out["same_commit_contradictions"] = np.bincount(version_test[mixed], minlength=n_tests)
+    labels = keys[_first_row(version, n_all_versions)[mixed]]
+    out["contradiction_commits"] = _tuples(version_test[mixed], [str(v) for v in labels], n_tests)
 
     # Builds where a failed attempt was followed by a passed one.
-    attempt = g["attempt"].astype(float)
-    first_fail = np.full(n_builds, np.inf)
-    last_pass = np.full(n_builds, -np.inf)
-    np.minimum.at(first_fail, builds[y == 1], attempt[y == 1])
-    np.maximum.at(last_pass, builds[y == 0], attempt[y == 0])
+    attempt = columns["attempt"].astype(float)
+    failed = y == 1
+    first_fail = np.full(n_all_builds, np.inf)
+    last_pass = np.full(n_all_builds, -np.inf)
+    np.minimum.at(first_fail, build[failed], attempt[failed])
+    np.maximum.at(last_pass, build[~failed], attempt[~failed])
     rerun = first_fail < last_pass
-    build_ids = pd.unique(g["build_id"])
-    row["pass_on_rerun"] = int(rerun.sum())
-    row["rerun_pass_builds"] = tuple(int(b) for b in build_ids[rerun])
+    out["pass_on_rerun"] = np.bincount(build_test[rerun], minlength=n_tests)
+    rerun_ids = build_id[_first_row(build, n_all_builds)[rerun]]
+    out["rerun_pass_builds"] = _tuples(build_test[rerun], [int(b) for b in rerun_ids], n_tests)
 
     # Failure episodes per branch over (branch, version) in time order. A short episode counts as
     # evidence of flakiness only when passing versions of the same branch lie on both sides of it: a
     # short-lived branch that failed from its first to its last build (it was based on broken code) or
     # an episode still open at the end says nothing about intermittency.
-    episode_lengths, short = [], 0
-    for branch in pd.unique(g["branch"]):
-        on_branch = g["branch"] == branch
-        b_codes, b_labels = pd.factorize(versions[on_branch])
-        touched = np.bincount(b_codes, weights=y[on_branch], minlength=len(b_labels)) > 0
-        lengths_b, starts_b = _episodes_with_starts(touched)
-        episode_lengths.append(lengths_b)
-        bounded = (starts_b > 0) & (starts_b + lengths_b < touched.size)
-        short += int((bounded & (lengths_b <= config.short_episode_max_versions)).sum())
-    lengths = np.concatenate(episode_lengths) if episode_lengths else np.zeros(0, dtype=int)
-    row["failure_episodes"] = int(lengths.size)
-    row["short_episodes"] = short
-    row["long_episodes"] = int((lengths > config.short_episode_max_versions).sum())
-    row["longest_episode"] = int(lengths.max()) if lengths.size else 0
-    row["scattered_episodes"] = max(0, short - 1)
+    branch_codes, _ = pd.factorize(columns["branch"])
+    on_branch = _pair_codes(group, branch_codes)  # one code per (test, branch)
+    cell = _pair_codes(on_branch, version)  # one code per (test, branch, version), in order of first run
+    n_cells = int(cell.max()) + 1 if n_rows else 0
+    cell_branch = _owner(cell, on_branch, n_cells)
+    touched = np.bincount(cell, weights=y, minlength=n_cells) > 0
+    seq = np.lexsort((np.arange(n_cells), cell_branch))
+    seq_branch = cell_branch[seq]
+    e_start, e_end = _blocks(touched[seq], seq_branch)
+    lengths = e_end - e_start + 1
+    branch_first = np.concatenate(([True], seq_branch[1:] != seq_branch[:-1])) if n_cells else np.zeros(0, bool)
+    branch_last = np.concatenate((branch_first[1:], [True])) if n_cells else np.zeros(0, bool)
+    bounded = ~branch_first[e_start] & ~branch_last[e_end]
+    episode_test = _owner(cell, group, n_cells)[seq][e_start]
+    limit = config.short_episode_max_versions
+    short = np.bincount(episode_test[bounded & (lengths <= limit)], minlength=n_tests)
+    out["failure_episodes"] = np.bincount(episode_test, minlength=n_tests)
+    out["short_episodes"] = short
+    out["long_episodes"] = np.bincount(episode_test[lengths > limit], minlength=n_tests)
+    longest_episode = np.zeros(n_tests, dtype=np.int64)
+    np.maximum.at(longest_episode, episode_test, lengths)
+    out["longest_episode"] = longest_episode
+    out["scattered_episodes"] = np.maximum(0, short - 1)
 
-    longest, last_start = _longest_streak(y)
-    row["longest_failure_streak"] = longest
+    # Streaks of failed runs, and whether the latest failing_now_runs runs all failed.
+    s_start, s_end = _blocks(failed, group)
+    streak_test = group[s_start]
+    longest = np.zeros(n_tests, dtype=np.int64)
+    np.maximum.at(longest, streak_test, s_end - s_start + 1)
+    out["longest_failure_streak"] = longest
+    last_start = np.full(n_tests, -1, dtype=np.int64)
+    np.maximum.at(last_start, streak_test, s_start)
     k = config.failing_now_runs
-    row["failing_now"] = bool(n >= k and y[-k:].all())
-    fail_idx = np.flatnonzero(y)
-    if failures:
-        row["first_failure_at"] = pd.Timestamp(g["started_at"][fail_idx[0]], tz="UTC")
-        row["last_failure_at"] = pd.Timestamp(g["started_at"][fail_idx[-1]], tz="UTC")
-        row["first_failure_commit"] = str(g["commit"][fail_idx[0]])
-        row["streak_start_commit"] = str(g["commit"][last_start])
-    else:
-        row["first_failure_at"] = pd.NaT
-        row["last_failure_at"] = pd.NaT
-        row["first_failure_commit"] = ""
-        row["streak_start_commit"] = ""
+    cum = np.concatenate(([0], np.cumsum(y, dtype=np.int64)))
+    out["failing_now"] = (n >= k) & (cum[ends] - cum[np.maximum(ends - k, 0)] == k)
+    fail_rows = np.flatnonzero(failed)
+    fail_test = group[fail_rows]
+    first_fail_row = np.full(n_tests, -1, dtype=np.int64)
+    last_fail_row = np.full(n_tests, -1, dtype=np.int64)
+    if fail_rows.size:
+        first_fail_row[fail_test[::-1]] = fail_rows[::-1]
+        last_fail_row[fail_test] = fail_rows
+    has_failure = failures > 0
+    started_at = columns["started_at"]
+    for name, rows in (("first_failure_at", first_fail_row), ("last_failure_at", last_fail_row)):
+        at = started_at[np.maximum(rows, 0)]
+        out[name] = np.where(has_failure, at, np.array("NaT", dtype=started_at.dtype))
+    commit_str = commit.astype(object)
+    out["first_failure_commit"] = np.where(has_failure, commit_str[np.maximum(first_fail_row, 0)], "")
+    out["streak_start_commit"] = np.where(has_failure, commit_str[np.maximum(last_start, 0)], "")
 
-    normalised = {normalise_message(m) for m in g["message"][fail_idx]}
-    row["message_diversity"] = len(normalised) / failures if failures else 0.0
-    timeouts = [
-        bool(_TIMEOUT.search(t) or _TIMEOUT.search(m))
-        for t, m in zip(g["failure_type"][fail_idx], g["message"][fail_idx], strict=True)
-    ]
-    row["timeout_failures"] = int(sum(timeouts))
-    durations = g["duration"][np.isfinite(g["duration"])]
-    mean = durations.mean() if durations.size else 0.0
-    row["duration_cv"] = float(durations.std() / mean) if durations.size >= 2 and mean > 0 else np.nan
-    return row
+    # Failure messages: distinct normalised messages per failure, and time-outs (each distinct text once).
+    message, failure_type = columns["message"][fail_rows], columns["failure_type"][fail_rows]
+    message_codes, distinct_messages = pd.factorize(pd.Series(message, dtype=object))
+    normalised_codes, _ = pd.factorize(np.array([normalise_message(m) for m in distinct_messages], dtype=object))
+    distinct = _pair_codes(fail_test, normalised_codes[message_codes]) if fail_rows.size else fail_test
+    n_distinct = np.bincount(_owner(distinct, fail_test, int(distinct.max()) + 1 if distinct.size else 0),
+                             minlength=n_tests)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out["message_diversity"] = np.where(has_failure, n_distinct / failures, 0.0)
+    type_codes, distinct_types = pd.factorize(pd.Series(failure_type, dtype=object))
+    timeout_message = np.array([bool(_TIMEOUT.search(m)) for m in distinct_messages], dtype=bool)
+    timeout_type = np.array([bool(_TIMEOUT.search(t)) for t in distinct_types], dtype=bool)
+    is_timeout = timeout_type[type_codes] | timeout_message[message_codes] if fail_rows.size else failed[:0]
+    out["timeout_failures"] = np.bincount(fail_test[is_timeout], minlength=n_tests)
+
+    # Coefficient of variation of the known durations.
+    duration = columns["duration"].astype(float)
+    known = np.isfinite(duration)
+    known_count = np.bincount(group[known], minlength=n_tests)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        mean_duration = np.bincount(group[known], weights=duration[known], minlength=n_tests) / known_count
+        deviation_sq = (duration[known] - mean_duration[group[known]]) ** 2
+        std = np.sqrt(np.bincount(group[known], weights=deviation_sq, minlength=n_tests) / known_count)
+        out["duration_cv"] = np.where((known_count >= 2) & (mean_duration > 0), std / mean_duration, np.nan)
+    return tid[starts], out
 
 
 def evidence_frame(
@@ -408,24 +525,28 @@ def evidence_frame(
     frame = frame.groupby("test_id", sort=False).tail(config.max_runs)
 
     columns = {c: frame[c].to_numpy() for c in frame.columns}  # started_at: naive UTC datetime64
-    tid = columns["test_id"]
-    boundaries = np.flatnonzero(tid[1:] != tid[:-1]) + 1
-    starts = np.concatenate(([0], boundaries)) if tid.size else np.zeros(0, dtype=int)
-    ends = np.concatenate((boundaries, [tid.size])) if tid.size else np.zeros(0, dtype=int)
-    rows = {}
-    for s, e in zip(starts, ends, strict=True):
-        g = {c: v[s:e] for c, v in columns.items()}
-        test_id = g["test_id"][0]
-        rows[test_id] = _one_test(g, int(skipped_counts.get(test_id, 0)), config)
-    empty = {c: np.zeros(0, dtype=v.dtype) for c, v in columns.items()} if columns else None
-    for test_id in test_ids:
-        if test_id not in rows:
-            g = empty or {c: np.zeros(0) for c in RUN_COLUMNS}
-            rows[test_id] = _one_test(g, int(skipped_counts.get(test_id, 0)), config)
-
-    row_columns = [c for c in EVIDENCE_COLUMNS if not c.startswith("failure_rate")]
-    result = pd.DataFrame.from_dict(rows, orient="index", columns=row_columns).reindex(test_ids)
-    result.index.name = "test_id"
+    present, values = _per_test(columns, config)
+    # Tests with no counted run (all skipped or outside the window) get the values of an empty history.
+    position = np.searchsorted(test_ids, present)
+    data: dict[str, object] = {}
+    for name in EVIDENCE_COLUMNS:
+        if name.startswith("failure_rate"):
+            continue
+        if name == "skipped":
+            data[name] = skipped_counts.reindex(test_ids, fill_value=0).to_numpy(dtype=np.int64)
+            continue
+        value = values[name]
+        if isinstance(value, list):
+            full: list[object] = [()] * test_ids.size
+            for i, v in zip(position.tolist(), value, strict=True):
+                full[i] = v
+            data[name] = pd.Series(full, dtype=object).to_numpy()
+            continue
+        array = np.asarray(value)
+        filled = np.full(test_ids.size, _EMPTY_HISTORY.get(name, 0), dtype=array.dtype)
+        filled[position] = array
+        data[name] = filled
+    result = pd.DataFrame(data, index=pd.Index(test_ids, name="test_id"))
     a = config.prior[0] + result["failures"].to_numpy(dtype=float)
     b = config.prior[1] + result["passes"].to_numpy(dtype=float)
     tail = (1.0 - config.level) / 2.0
@@ -435,5 +556,5 @@ def evidence_frame(
         result.columns.get_loc("message_diversity"), "failure_rate_high", stats.beta.ppf(1.0 - tail, a, b)
     )
     for col in ("first_failure_at", "last_failure_at"):
-        result[col] = pd.to_datetime(result[col], utc=True)
+        result[col] = result[col].dt.tz_localize("UTC")
     return result
