@@ -179,7 +179,7 @@ def normalise_message(message: object) -> str:
     return _SPACE.sub(" ", text).strip()
 
 
-def _validated(runs: pd.DataFrame, now: pd.Timestamp) -> tuple[pd.DataFrame, pd.Timestamp]:
+def _validated(runs: pd.DataFrame, now: pd.Timestamp) -> tuple[dict[str, np.ndarray], pd.Timestamp]:
     if not isinstance(runs, pd.DataFrame):
         raise TypeError("runs must be a pandas DataFrame")
     missing = [c for c in RUN_COLUMNS if c not in runs.columns]
@@ -194,21 +194,19 @@ def _validated(runs: pd.DataFrame, now: pd.Timestamp) -> tuple[pd.DataFrame, pd.
         first = runs.index[bad.to_numpy()][0]
         values = sorted({repr(v) for v in outcome[bad]})[:5]
         raise ValueError(f"{BAD_OUTCOME_VALUE}{', '.join(values)} (first at row {first!r})")
-    frame = pd.DataFrame(
-        {
-            "test_id": runs["test_id"].to_numpy(),
-            "build_id": runs["build_id"].to_numpy(),
-            "commit": runs["commit"].fillna("").astype(str).to_numpy(),
-            "branch": runs["branch"].fillna("").astype(str).to_numpy(),
-            "started_at": pd.to_datetime(runs["started_at"], utc=True).dt.tz_localize(None).array,
-            "attempt": runs["attempt"].to_numpy(),
-            "outcome": outcome.to_numpy(),
-            "duration": pd.to_numeric(runs["duration"], errors="coerce").to_numpy(dtype=float),
-            "failure_type": runs["failure_type"].fillna("").astype(str).to_numpy(),
-            "message": runs["message"].fillna("").astype(str).to_numpy(),
-        }
-    )
-    return frame, now
+    columns = {
+        "test_id": runs["test_id"].to_numpy(),
+        "build_id": runs["build_id"].to_numpy(),
+        "commit": runs["commit"].fillna("").astype(str).to_numpy(dtype=object),
+        "branch": runs["branch"].fillna("").astype(str).to_numpy(dtype=object),
+        "started_at": pd.to_datetime(runs["started_at"], utc=True).dt.tz_localize(None).to_numpy(),
+        "attempt": runs["attempt"].to_numpy(),
+        "outcome": outcome.to_numpy(dtype=object),
+        "duration": pd.to_numeric(runs["duration"], errors="coerce").to_numpy(dtype=float),
+        "failure_type": runs["failure_type"].fillna("").astype(str).to_numpy(dtype=object),
+        "message": runs["message"].fillna("").astype(str).to_numpy(dtype=object),
+    }
+    return columns, now
 
 
 def _pair_codes(outer: np.ndarray, inner: np.ndarray) -> np.ndarray:
@@ -513,18 +511,26 @@ def evidence_frame(
     .. [2] NIST/SEMATECH e-Handbook, section 1.3.5.13.
     """
     config.validate()
-    frame, now = _validated(runs, now)
-    test_ids = np.sort(pd.unique(frame["test_id"]))
+    validated, now = _validated(runs, now)
+    tid = validated["test_id"]
+    test_ids = np.sort(pd.unique(tid))
     now = now.tz_localize(None)
     start = now - pd.Timedelta(days=config.window_days)
-    in_window = (frame["started_at"] > start) & (frame["started_at"] <= now)
-    frame = frame[in_window]
-    skipped_counts = frame.loc[frame["outcome"] == "skipped", "test_id"].value_counts()
-    frame = frame[frame["outcome"] != "skipped"]
-    frame = frame.sort_values(["test_id", "started_at", "build_id", "attempt"], kind="stable")
-    frame = frame.groupby("test_id", sort=False).tail(config.max_runs)
-
-    columns = {c: frame[c].to_numpy() for c in frame.columns}  # started_at: naive UTC datetime64
+    started_at = validated["started_at"]  # naive UTC datetime64
+    in_window = (started_at > start.to_datetime64()) & (started_at <= now.to_datetime64())
+    skipped = validated["outcome"] == "skipped"
+    skipped_counts = pd.Series(tid[in_window & skipped]).value_counts()
+    # Counted runs: in the window, not skipped, ordered by (test_id, started_at, build_id, attempt), the
+    # latest max_runs per test. Only the sort keys are reordered until the final selection is known.
+    kept = np.flatnonzero(in_window & ~skipped)
+    keys = pd.DataFrame({c: validated[c][kept] for c in ("test_id", "started_at", "build_id", "attempt")})
+    kept = kept[keys.sort_values(list(keys.columns), kind="stable").index.to_numpy()]
+    sorted_tid = tid[kept]
+    if kept.size:
+        group_end = np.flatnonzero(np.concatenate((sorted_tid[1:] != sorted_tid[:-1], [True])))
+        ends = np.repeat(group_end, np.diff(np.concatenate(([-1], group_end))))
+        kept = kept[ends - np.arange(kept.size) < config.max_runs]
+    columns = {c: v[kept] for c, v in validated.items()}
     present, values = _per_test(columns, config)
     # Tests with no counted run (all skipped or outside the window) get the values of an empty history.
     position = np.searchsorted(test_ids, present)
