@@ -6,6 +6,7 @@ import math
 from collections.abc import Iterable
 from datetime import datetime, timedelta
 
+import numpy as np
 import pandas as pd
 from django.db import transaction
 from django.db.models import Max
@@ -41,14 +42,16 @@ def _jsonable(value):
 
 def recent_outcomes(runs: pd.DataFrame, *, last: int = 20) -> pd.Series:
     """Per test, its latest ``last`` runs (oldest first) as one letter each: P, F, E, S (skipped)."""
-    latest = (
-        runs.sort_values(["test_id", "started_at", "build_id", "attempt"], kind="stable")
-        .groupby("test_id", sort=False)
-        .tail(last)
-    )
-    codes, outcomes = pd.factorize(latest["outcome"])
-    letters = pd.Series([str(o)[0].upper() for o in outcomes], dtype=object).to_numpy()[codes]
-    return pd.Series(letters, index=latest.index).groupby(latest["test_id"]).agg("".join)
+    keys = runs[["test_id", "started_at", "build_id", "attempt"]].reset_index(drop=True)
+    order = keys.sort_values(list(keys.columns), kind="stable").index.to_numpy()
+    test_id = keys["test_id"].to_numpy()[order]
+    # Keep the rows less than ``last`` from the end of their test's block.
+    group_end = np.flatnonzero(np.concatenate((test_id[1:] != test_id[:-1], [True])))
+    ends = np.repeat(group_end, np.diff(np.concatenate(([-1], group_end))))
+    latest = order[ends - np.arange(order.size) < last]
+    codes, outcomes = pd.factorize(runs["outcome"].to_numpy()[latest])
+    letters = np.array([str(o)[0].upper() for o in outcomes] or [""], dtype=object)[codes]
+    return pd.Series(letters).groupby(pd.Series(keys["test_id"].to_numpy()[latest], name="test_id")).agg("".join)
 
 
 def flaky_scores_refresh(
