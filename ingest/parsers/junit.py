@@ -3,7 +3,7 @@
 Bytes in, plain rows out: this module imports nothing from Django and does no database work. It reads the
 dialects written by pytest (``--junitxml``, families xunit1 and xunit2), Ant-style reports (one suite per
 class, suites nested at any depth) and Apache Maven Surefire reports with rerun elements, and turns each
-test *attempt* into one frozen :class:`ParsedResult`.
+test *attempt* into one immutable :class:`ParsedResult` (a named tuple).
 
 Conventions
 -----------
@@ -53,7 +53,6 @@ References
 
 from __future__ import annotations
 
-import dataclasses
 import io
 import math
 import os
@@ -63,7 +62,7 @@ from collections import Counter
 from collections.abc import Iterator
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
-from typing import BinaryIO
+from typing import BinaryIO, NamedTuple
 
 from lxml import etree
 
@@ -118,7 +117,8 @@ WARN_MORE = "{filename}: {count} more warning(s) not shown"
 
 _TOTAL_KEYS = ("tests", "failures", "errors", "skipped")
 _SUITE_TAGS = frozenset({"testsuite", "testsuites"})
-# Finished testcases are cleared at once; they and their preceding siblings are detached every this many.
+# Finished testcases with children are cleared at once (childless ones hold only attributes); every this many
+# testcases, the finished one and its preceding siblings are detached.
 _RELEASE_EVERY = 64
 _RESULT_TAGS = frozenset({"failure", "error"})
 _BEFORE_TAGS = {"flakyFailure": "failed", "flakyError": "error"}
@@ -172,12 +172,14 @@ class JUnitParseError(ValueError):
         super().__init__(text)
 
 
-@dataclass(frozen=True)
-class ParsedResult:
+class ParsedResult(NamedTuple):
     """One attempt of one test, as read from a JUnit-XML report.
 
-    Not slotted: the reader builds instances through :func:`_parsed_new`, which sets the instance
-    dictionary in one step instead of 15 frozen-attribute writes (the dominant per-result cost).
+    An immutable named tuple: fields are read by name (``result.outcome``), assignment raises
+    ``AttributeError``, and two results are equal when all their fields are (like any tuple, a result also
+    equals a plain tuple of the same values). A tuple rather than a frozen dataclass because the reader
+    builds one per attempt and tuple construction is the cheapest there is (a frozen dataclass costs 15
+    guarded attribute writes, or an instance dictionary, per result).
     """
 
     suite: str
@@ -197,8 +199,7 @@ class ParsedResult:
     properties: tuple[tuple[str, str], ...]
 
 
-_object_new = object.__new__
-_object_setattr = object.__setattr__
+_tuple_new = tuple.__new__
 
 
 def _parsed_new(
@@ -219,29 +220,26 @@ def _parsed_new(
     properties: tuple[tuple[str, str], ...],
 ) -> ParsedResult:
     """Build a :class:`ParsedResult` equal to ``ParsedResult(...)`` with the same arguments, faster."""
-    result = _object_new(ParsedResult)
-    _object_setattr(
-        result,
-        "__dict__",
-        {
-            "suite": suite,
-            "classname": classname,
-            "name": name,
-            "file": file,
-            "outcome": outcome,
-            "duration": duration,
-            "attempt": attempt,
-            "failure_type": failure_type,
-            "message": message,
-            "details": details,
-            "system_out": system_out,
-            "system_err": system_err,
-            "truncated": truncated,
-            "timestamp": timestamp,
-            "properties": properties,
-        },
+    return _tuple_new(
+        ParsedResult,
+        (
+            suite,
+            classname,
+            name,
+            file,
+            outcome,
+            duration,
+            attempt,
+            failure_type,
+            message,
+            details,
+            system_out,
+            system_err,
+            truncated,
+            timestamp,
+            properties,
+        ),
     )
-    return result
 
 
 def junit_time_parse(value: str | None) -> float | None:
@@ -610,29 +608,41 @@ class JUnitReader:
             state = _ParseState(filename=filename)
             suites = state.suites
             attempts = state.attempts
+            attempts_setdefault = attempts.setdefault
             intern = sys.intern
-            new = _object_new
-            setattr_ = _object_setattr
+            build = _tuple_new
+            result_type = ParsedResult
+            inf = math.inf
             testcase_depth = 0
             released = 0
+            # Childless passed testcases read since the innermost suite last changed; added to its ``plain``
+            # count when a suite opens or closes (or the loop stops), not once per testcase.
+            plain = 0
+            suite_name = ""
+            suite_timestamp: datetime | None = None
             local_names: dict[object, str] = {}
+            local_get = local_names.get
             try:
                 for event, elem in events:
                     tag = elem.tag
-                    if tag != "testcase":
-                        local = local_names.get(tag)
+                    if tag == "testcase":
+                        local = tag
+                    else:
+                        local = local_get(tag)
                         if local is None:
                             local = local_names[tag] = _local(tag)
-                    else:
-                        local = tag
                     if event == "end":
                         if local == "testcase":
-                            testcase_depth -= 1
-                            if testcase_depth:
-                                self._warn(WARN_NESTED_TESTCASE.format(filename=filename, line=elem.sourceline))
+                            if testcase_depth != 1:
+                                testcase_depth -= 1
+                                self._warn(
+                                    WARN_NESTED_TESTCASE.format(filename=filename, line=elem.sourceline)
+                                )
                                 continue
+                            testcase_depth = 0
                             if len(elem):
                                 yield from self._testcase(elem, state, filename)
+                                elem.clear(keep_tail=False)
                             else:
                                 # Fast path: no children, so one passed attempt with nothing to cap; it
                                 # never absorbs a teardown error, so it need not wait in state.pending.
@@ -647,42 +657,43 @@ class JUnitReader:
                                         duration = float(raw_time)
                                     except ValueError:
                                         duration = None
-                                    if duration is None or not 0.0 <= duration < math.inf:
+                                    if duration is None or not 0.0 <= duration < inf:
                                         duration = junit_time_parse(raw_time)
                                         if duration is None and raw_time.strip():
                                             state.note_bad_time(elem.sourceline, raw_time)
-                                suite = suites[-1]
-                                suite.plain += 1
+                                plain += 1
                                 key = (classname, name)
-                                number = attempts.get(key, 0) + 1
-                                attempts[key] = number
+                                # One dictionary operation for a first attempt (the usual case), two after.
+                                seen = len(attempts)
+                                number = attempts_setdefault(key, 1)
+                                if len(attempts) == seen:
+                                    number += 1
+                                    attempts[key] = number
                                 if state.pending:
                                     yield from state.flush()
                                 # Same as ParsedResult(...) with these values (see _parsed_new), inlined.
-                                result = new(ParsedResult)
-                                setattr_(
-                                    result,
-                                    "__dict__",
-                                    {
-                                        "suite": suite.result_name,
-                                        "classname": classname,
-                                        "name": name,
-                                        "file": get("file", ""),
-                                        "outcome": "passed",
-                                        "duration": duration,
-                                        "attempt": number,
-                                        "failure_type": "",
-                                        "message": "",
-                                        "details": "",
-                                        "system_out": "",
-                                        "system_err": "",
-                                        "truncated": (),
-                                        "timestamp": suite.timestamp,
-                                        "properties": (),
-                                    },
+                                yield build(
+                                    result_type,
+                                    (
+                                        suite_name,
+                                        classname,
+                                        name,
+                                        get("file", ""),
+                                        "passed",
+                                        duration,
+                                        number,
+                                        "",
+                                        "",
+                                        "",
+                                        "",
+                                        "",
+                                        (),
+                                        suite_timestamp,
+                                        (),
+                                    ),
                                 )
-                                yield result
-                            elem.clear(keep_tail=False)
+                            # A childless element holds only its attributes: it is freed with its siblings
+                            # below rather than cleared one by one.
                             released += 1
                             if released >= _RELEASE_EVERY:
                                 released = 0
@@ -694,9 +705,12 @@ class JUnitReader:
                             continue
                         else:
                             suite = suites.pop()
+                            suite.plain += plain
+                            plain = 0
                             self._suite_check(suite, filename)
                             if suites:
                                 suite.add_to(suites[-1])
+                                suite_name, suite_timestamp = suites[-1].result_name, suites[-1].timestamp
                             else:
                                 self.parsed_totals = suite.per_element()
                             _release(elem)
@@ -708,12 +722,17 @@ class JUnitReader:
                         if not suites:
                             self._root_check(elem, local, filename)
                         if local in _SUITE_TAGS:
+                            if suites:
+                                suites[-1].plain += plain
+                                plain = 0
                             self._suite_open(elem, local, state, filename)
+                            suite_name, suite_timestamp = suites[-1].result_name, suites[-1].timestamp
             except etree.XMLSyntaxError as exc:
                 raise self._syntax_error(exc, stream, filename) from None
             finally:
                 if suites:
                     # Stopped early (bad XML, or the caller stopped): count what was read so far.
+                    suites[-1].plain += plain
                     self.parsed_totals = _totals_open(suites)
             yield from state.flush()
             if state.bad_times:
@@ -992,6 +1011,33 @@ def _result(
     timestamp: datetime | None,
     properties: tuple[tuple[str, str], ...],
 ) -> ParsedResult:
+    failure_type, message, details = attempt.failure_type, attempt.message, attempt.details
+    system_out, system_err = attempt.system_out, attempt.system_err
+    if (
+        len(failure_type) <= MESSAGE_CAP
+        and len(message) <= MESSAGE_CAP
+        and len(details) <= DETAILS_CAP
+        and len(system_out) <= OUTPUT_CAP
+        and len(system_err) <= OUTPUT_CAP
+    ):
+        # Nothing to cap (the usual case).
+        return _parsed_new(
+            suite,
+            classname,
+            name,
+            file,
+            attempt.outcome,
+            attempt.duration,
+            number,
+            failure_type,
+            message,
+            details,
+            system_out,
+            system_err,
+            (),
+            timestamp,
+            properties,
+        )
     truncated: list[tuple[str, int]] = []
     return _parsed_new(
         suite,
@@ -1032,8 +1078,7 @@ def _absorb_teardown(previous: ParsedResult, teardown: _Attempt) -> ParsedResult
     if len(err) > OUTPUT_CAP:
         truncated.setdefault("system_err", len(err))
         err = err[:OUTPUT_CAP]
-    return dataclasses.replace(
-        previous,
+    return previous._replace(
         details=details,
         system_out=out,
         system_err=err,
@@ -1046,8 +1091,7 @@ def _release(elem: etree._Element) -> None:
     elem.clear(keep_tail=False)
     parent = elem.getparent()
     if parent is not None:
-        while elem.getprevious() is not None:
-            del parent[0]
+        del parent[: parent.index(elem)]
 
 
 def parse_junit(

@@ -1,12 +1,11 @@
 """The JUnit reader's fast path (childless passed testcases) must agree with its general path.
 
 Outside reference: the ``junitparser`` library's reading of the same documents (``junitparser_attempts``), plus
-the dataclass constructor of ``ParsedResult`` itself for the instances the reader builds without it.
+the class constructor of ``ParsedResult`` itself for the instances the reader builds without it.
 """
 
 from __future__ import annotations
 
-import dataclasses
 from datetime import UTC, datetime
 
 import pytest
@@ -56,17 +55,21 @@ def test_both_paths_match_junitparser(tmp_path, with_child):
     assert reader.parsed_totals == junitparser_counts(path)
 
 
-def test_fast_built_result_equals_the_dataclass_constructor():
+def test_fast_built_result_equals_the_class_constructor():
     values = (
         "dock", "berth.Slip", "t0", "slip.py", "passed", 0.5, 1, "", "", "", "", "", (),
         datetime(2026, 3, 1, tzinfo=UTC), (("owner", "harbour"),),
     )  # fmt: skip
     built, constructed = _parsed_new(*values), ParsedResult(*values)
+    assert type(built) is ParsedResult
     assert built == constructed
     assert hash(built) == hash(constructed)
     assert repr(built) == repr(constructed)
-    assert dataclasses.astuple(built) == values
-    with pytest.raises(dataclasses.FrozenInstanceError):
+    # Reference: the standard library's typing.NamedTuple field order and _asdict().
+    assert tuple(built) == values
+    assert built._asdict() == dict(zip(ParsedResult._fields, values, strict=True))
+    assert built.name == "t0" and built.timestamp == datetime(2026, 3, 1, tzinfo=UTC)
+    with pytest.raises(AttributeError):
         built.name = "other"  # type: ignore[misc]
 
 
