@@ -646,10 +646,11 @@ class JUnitReader:
                             else:
                                 # Fast path: no children, so one passed attempt with nothing to cap; it
                                 # never absorbs a teardown error, so it need not wait in state.pending.
+                                # Bytes keys: lxml then skips encoding the attribute name on each call.
                                 get = elem.get
-                                classname = intern(get("classname", ""))
-                                name = get("name", "")
-                                raw_time = get("time")
+                                classname = intern(get(b"classname", ""))
+                                name = get(b"name", "")
+                                raw_time = get(b"time")
                                 if raw_time is None:
                                     duration = None
                                 else:
@@ -678,7 +679,7 @@ class JUnitReader:
                                         suite_name,
                                         classname,
                                         name,
-                                        get("file", ""),
+                                        get(b"file", ""),
                                         "passed",
                                         duration,
                                         number,
