@@ -164,6 +164,25 @@ class ForecastSnapshot(models.Model):
         constraints = [models.UniqueConstraint(fields=["project", "series_name"], name="uniq_forecast_series")]
 
 
+class RuntimeGrowth(models.Model):
+    """The tests whose mean run time grew most up to one week, precomputed by the analytics refresh.
+
+    ``top`` maps a scope to its ranked entries: ``"all"`` for the whole project and the component id (as a
+    string; ``"0"`` for tests without a component) for each component, each a list of
+    ``{"test_id", "test", "component", "before", "recent", "growth"}``, largest growth first. The overview
+    reads this one row instead of ranking every test's weeks per request.
+    """
+
+    project = models.ForeignKey(Project, on_delete=models.CASCADE, related_name="+")
+    week = models.DateField()
+    window_weeks = models.IntegerField()
+    top = models.JSONField(default=dict)
+    computed_at = models.DateTimeField()
+
+    class Meta:
+        constraints = [models.UniqueConstraint(fields=["project", "week"], name="uniq_runtime_growth_week")]
+
+
 class AnalyticsRun(models.Model):
     """One detector run, for the record: what ran, how long, with what outcome."""
 

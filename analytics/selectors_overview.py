@@ -16,12 +16,12 @@ from django.db import connection
 from django.db.models import Count, Exists, F, OuterRef, Q, QuerySet, Subquery, Sum
 from django.db.models.functions import TruncWeek
 
-from analytics.models import TestHealth
+from analytics.models import RuntimeGrowth, TestHealth
 from ingest.models import Build, Component, Defect, ProjectWeek, TestWeek, week_start
 
 TREND_WEEKS = 26
 GROWTH_WINDOW = 4  # weeks compared on each side for the test-time growth
-GROWTH_TOP = 8
+GROWTH_TOP = 8  # tests shown (stored per scope by the refresh)
 ROW_KINDS = ("failed", "newly-failing", "fixed", "tests", "defects-opened", "defects-closed", "backlog", "flaky")
 
 _FAILING = Q(failed__gt=0) | Q(errors__gt=0)
@@ -211,46 +211,52 @@ WITH per_test AS (
              / NULLIF(SUM(CASE WHEN w.week >= %(recent_from)s THEN w.duration_count END), 0) AS recent,
            SUM(CASE WHEN w.week < %(recent_from)s THEN w.duration_total END) * 1.0
              / NULLIF(SUM(CASE WHEN w.week < %(recent_from)s THEN w.duration_count END), 0) AS before
-    FROM ingest_testweek w {component_join}
+    FROM ingest_testweek w
     WHERE w.project_id = %(project)s AND w.week >= %(before_from)s AND w.week <= %(week)s AND w.duration_count > 0
     GROUP BY w.test_case_id
-), top AS (
+), grown AS (
     SELECT id, before, recent, recent - before AS growth FROM per_test
     WHERE recent IS NOT NULL AND before IS NOT NULL AND recent - before > 0
-    ORDER BY growth DESC, id
-    LIMIT %(top)s
 )
-SELECT top.id, t.classname, t.name, c.name, top.before, top.recent, top.growth
-FROM top JOIN ingest_testcase t ON t.id = top.id LEFT JOIN ingest_component c ON c.id = t.component_id
-ORDER BY top.growth DESC, top.id
+SELECT grown.id, t.classname, t.name, COALESCE(t.component_id, 0), c.name, grown.before, grown.recent, grown.growth
+FROM grown JOIN ingest_testcase t ON t.id = grown.id LEFT JOIN ingest_component c ON c.id = t.component_id
+ORDER BY grown.growth DESC, grown.id
 """
+GROWTH_COLUMNS = ["test_id", "test", "component", "before", "recent", "growth"]
 
 
-def duration_growth_frame(scope: Scope, *, window: int = GROWTH_WINDOW, top: int = GROWTH_TOP) -> pd.DataFrame:
-    """Tests whose mean run time grew most: the last ``window`` weeks up to ``scope.week`` against the
-    ``window`` weeks before. Columns: test_id, test, component, before, recent, growth (seconds per run).
-
-    One statement that ranks by test id first and joins names to the ``top`` rows only: its cost grows with
-    tests × 2 ``window`` weeks of the rollup, never with the history beyond them.
+def growth_by_test(*, project_id: int, week: date, window: int = GROWTH_WINDOW) -> pd.DataFrame:
+    """Every test whose mean run time grew: the ``window`` weeks up to ``week`` against the ``window`` weeks
+    before, largest growth first. Columns: test_id, test, component_key (0: none), component, before, recent,
+    growth (seconds per run). Reads tests × 2 ``window`` weeks of the rollup: the analytics refresh calls it
+    (``analytics.services.growth``), the page reads the stored top entries.
     """
-    recent_from = scope.week - timedelta(weeks=window - 1)
+    recent_from = week - timedelta(weeks=window - 1)
     adapt = connection.ops.adapt_datefield_value
     params = {"recent_from": adapt(recent_from), "before_from": adapt(recent_from - timedelta(weeks=window)),
-              "week": adapt(scope.week), "project": scope.project_id, "top": top}
-    component_join = ""
-    if scope.component_id is not None:
-        component_join = "JOIN ingest_testcase tc ON tc.id = w.test_case_id AND tc.component_id = %(component)s"
-        params["component"] = scope.component_id
+              "week": adapt(week), "project": project_id}
     with connection.cursor() as cursor:
-        cursor.execute(_GROWTH_SQL.format(component_join=component_join), params)
+        cursor.execute(_GROWTH_SQL, params)
         rows = cursor.fetchall()
     frame = pd.DataFrame.from_records(
-        rows, columns=["test_id", "classname", "name", "component", "before", "recent", "growth"]
+        rows, columns=["test_id", "classname", "name", "component_key", "component", "before", "recent", "growth"]
     )
     frame[["before", "recent", "growth"]] = frame[["before", "recent", "growth"]].astype(float)
     frame["test"] = [f"{c}::{n}" if c else n for c, n in zip(frame["classname"], frame["name"])]
     frame["component"] = frame["component"].fillna(NO_COMPONENT)
-    return frame[["test_id", "test", "component", "before", "recent", "growth"]]
+    return frame[["test_id", "test", "component_key", "component", "before", "recent", "growth"]]
+
+
+def duration_growth_frame(scope: Scope) -> pd.DataFrame:
+    """Tests whose mean run time grew most up to ``scope.week`` (columns :data:`GROWTH_COLUMNS`), as the last
+    analytics refresh stored them (``RuntimeGrowth``): one row read, whatever the number of tests. Empty when
+    no refresh has covered the week yet.
+    """
+    top = RuntimeGrowth.objects.filter(project_id=scope.project_id, week=scope.week).values_list(
+        "top", flat=True
+    ).first() or {}
+    entries = top.get("all" if scope.component_id is None else str(scope.component_id), [])
+    return pd.DataFrame.from_records(entries, columns=GROWTH_COLUMNS)
 
 
 # --------------------------------------------------------------------------------------------------- rows

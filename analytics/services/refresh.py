@@ -38,10 +38,12 @@ def analytics_refresh(*, project_id: int) -> dict[str, tuple[int, float]]:
     from analytics.services.duplicates import defect_duplicates_refresh
     from analytics.services.flaky import flaky_scores_refresh
     from analytics.services.forecasts import forecasts_refresh
+    from analytics.services.growth import runtime_growth_refresh
 
     steps: dict[str, Callable[[], int]] = {
         "flaky": lambda: flaky_scores_refresh(project_id=project_id),
         "clusters": lambda: clusters_refresh(project_id=project_id),
+        "runtime_growth": lambda: runtime_growth_refresh(project_id=project_id),
         "forecasts": lambda: forecasts_refresh(project_id=project_id),
         "duplicates": lambda: defect_duplicates_refresh(project_id=project_id),
     }
@@ -66,11 +68,15 @@ def analytics_refresh_after_build(*, project_id: int, build_id: int) -> dict[str
     """Incremental refresh after one build: cost grows with the build, not with the history."""
     from analytics.services.clusters import clusters_assign_build
     from analytics.services.flaky import flaky_scores_refresh
-    from ingest.models import TestResult
+    from analytics.services.growth import runtime_growth_refresh, weeks_after_build
+    from ingest.models import Build, TestResult
 
     test_ids = set(TestResult.objects.filter(build_id=build_id).values_list("test_case_id", flat=True))
+    week = Build.objects.filter(pk=build_id).values_list("week", flat=True).first()
     steps: dict[str, Callable[[], int]] = {
         "flaky": lambda: flaky_scores_refresh(project_id=project_id, test_ids=test_ids),
         "clusters": lambda: clusters_assign_build(project_id=project_id, build_id=build_id),
+        "runtime_growth": lambda: runtime_growth_refresh(
+            project_id=project_id, weeks=[] if week is None else weeks_after_build(project_id=project_id, week=week)),
     }
     return _run_steps(project_id=project_id, scope="build", steps=steps)

@@ -9,8 +9,16 @@ from datetime import date, timedelta
 import pandas as pd
 import pytest
 
-from analytics.selectors_overview import GROWTH_WINDOW, Scope, duration_growth_frame
-from ingest.models import Component, ComponentRule, Project, TestResult
+from analytics.selectors_overview import (
+    GROWTH_TOP,
+    GROWTH_WINDOW,
+    Scope,
+    duration_growth_frame,
+    growth_by_test,
+)
+from analytics.services.growth import runtime_growth_refresh
+from analytics.services.refresh import analytics_refresh_after_build
+from ingest.models import Build, Component, ComponentRule, Project, TestResult
 from ingest.services.results import BuildMeta, results_job_create, results_job_run
 
 pytestmark = pytest.mark.django_db
@@ -60,16 +68,33 @@ def project():
 
 
 def test_growth_equals_the_raw_results_recomputation(project):
-    got = duration_growth_frame(Scope(project.pk, WEEK), top=50)
+    got = growth_by_test(project_id=project.pk, week=WEEK)
     want = _reference(project, WEEK)
     assert list(got["test_id"]) == list(want.index)
     assert got["growth"].to_numpy() == pytest.approx(want.to_numpy(), rel=1e-9)
     assert (got["recent"] - got["before"]).to_numpy() == pytest.approx(got["growth"].to_numpy(), rel=1e-9)
 
 
-def test_top_and_component_scope(project):
+def test_the_page_reads_the_stored_top_of_each_scope(project):
+    assert duration_growth_frame(Scope(project.pk, WEEK)).empty  # nothing stored before a refresh
+    assert runtime_growth_refresh(project_id=project.pk) == 12
+    shown = duration_growth_frame(Scope(project.pk, WEEK))
+    want = _reference(project, WEEK)
+    assert list(shown["test_id"]) == list(want.index[:GROWTH_TOP])
+    assert shown["growth"].to_numpy() == pytest.approx(want.to_numpy()[:GROWTH_TOP], rel=1e-9)
     docks = Component.objects.get(name="Docks")
-    got = duration_growth_frame(Scope(project.pk, WEEK, docks.pk), top=2)
-    want = _reference(project, WEEK, component="Docks")
-    assert list(got["test_id"]) == list(want.index[:2])
-    assert set(got["component"]) == {"Docks"} and all(t.startswith("docks.api::") for t in got["test"])
+    scoped = duration_growth_frame(Scope(project.pk, WEEK, docks.pk))
+    assert list(scoped["test_id"]) == list(_reference(project, WEEK, component="Docks").index[:GROWTH_TOP])
+    assert set(scoped["component"]) == {"Docks"} and all(t.startswith("docks.api::") for t in scoped["test"])
+
+
+def test_a_new_build_refreshes_its_week(project):
+    runtime_growth_refresh(project_id=project.pk)
+    before = duration_growth_frame(Scope(project.pk, WEEK))
+    slow = {("docks.api", "test_2"): 60.0}  # a test that shrank so far becomes the fastest-growing one
+    _import(project, "late", WEEK + timedelta(days=3), slow)
+    build = Build.objects.get(external_id="late")
+    analytics_refresh_after_build(project_id=project.pk, build_id=build.pk)
+    after = duration_growth_frame(Scope(project.pk, WEEK))
+    assert after["test"].iloc[0] == "docks.api::test_2" and "docks.api::test_2" not in set(before["test"])
+    assert list(after["test_id"]) == list(_reference(project, WEEK).index[:GROWTH_TOP])

@@ -58,8 +58,10 @@ def test_each_refresh_path_runs_its_detectors():
 
     project = Project.objects.create(slug="p", name="P")
     build = Build.objects.create(project=project, external_id="1", started_at=timezone.now())
-    assert set(refresh.analytics_refresh(project_id=project.pk)) == {"flaky", "clusters", "forecasts", "duplicates"}
-    assert set(refresh.analytics_refresh_after_build(project_id=project.pk, build_id=build.pk)) == {"flaky", "clusters"}
+    assert set(refresh.analytics_refresh(project_id=project.pk)) == {
+        "flaky", "clusters", "runtime_growth", "forecasts", "duplicates"}
+    assert set(refresh.analytics_refresh_after_build(project_id=project.pk, build_id=build.pk)) == {
+        "flaky", "clusters", "runtime_growth"}
     assert set(refresh.analytics_refresh_after_defects(project_id=project.pk)) == {
         "forecasts", "duplicates", "cluster_defects"}
     assert AnalyticsRun.objects.filter(project=project, ok=False).count() == 0

@@ -14,6 +14,7 @@ import pytest
 from django.urls import reverse
 
 from analytics.models import TestHealth
+from analytics.services.growth import runtime_growth_refresh
 from analytics.views.overview import NO_PROJECT_TEXT
 from ingest.models import Build, Component, Defect, Project, TestCase, TestResult
 from ingest.services.results import rollup_rebuild
@@ -68,6 +69,7 @@ def world_fixture(db):
     early = _build(project, 0, WEEK_A - timedelta(weeks=4))  # before the growth chart's recent window
     _result(project, early, slow, "passed", duration=1.0)
     rollup_rebuild(project=project)
+    runtime_growth_refresh(project_id=project.pk)  # as the analytics refresh does
     TestHealth.objects.create(test_case=breaks, project=project, score=0.9, verdict="flaky", scored_by="rules",
                               computed_at=datetime(2026, 10, 18, tzinfo=UTC))
     TestHealth.objects.create(test_case=steady, project=project, score=0.1, verdict="stable", scored_by="rules",
@@ -260,6 +262,7 @@ def _more_history(world, weeks: int, tests: int) -> None:
         for test in extra:
             _result(project, build, test, "failed" if w % 2 else "passed")
     rollup_rebuild(project=project)
+    runtime_growth_refresh(project_id=project.pk)
 
 
 OVERVIEW_QUERIES = 19  # session, user, 2 permission checks, project, 13 rollup reads, project switcher
