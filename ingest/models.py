@@ -207,7 +207,12 @@ class TestWeek(models.Model):
 
     class Meta:
         constraints = [models.UniqueConstraint(fields=["test_case", "week"], name="uniq_test_week")]
-        indexes = [models.Index(fields=["project", "week"])]
+        indexes = [
+            models.Index(fields=["project", "week"]),
+            # The week's failing tests (a few per cent of the rows): newly failing, fixed, the failed table.
+            models.Index(fields=["project", "week"], name="ingest_testweek_failing",
+                         condition=models.Q(failed__gt=0) | models.Q(errors__gt=0)),
+        ]
 
 
 class ProjectWeek(models.Model):
