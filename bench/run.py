@@ -343,6 +343,11 @@ def summarise_results(results: dict, scale: Scale) -> None:
                 figures.append({"figure": f"refresh after a new {scale.new_build_results:,}-result build, {which} history",
                                 "wall": report.summarise(a["incremental"][which]["wall"]).as_dict(),
                                 "cpu": report.summarise(a["incremental"][which]["cpu"]).as_dict()})
+            split = a.get("after_build_steps", {}).get(which)
+            if split:
+                parts = ", ".join(f"{k} {report.summarise(v).median:.2f} s" for k, v in split.items())
+                results["facts"].append(f"refresh after one new build at the {which} history, by detector (median "
+                                        f"wall seconds over the repeats): {parts}")
             full = a.get("full", {}).get(which)
             if full:
                 steps = ", ".join(f"{k} {v['seconds']:.1f} s ({v['rows']:,} rows)" for k, v in full["steps"].items())

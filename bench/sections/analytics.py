@@ -65,8 +65,10 @@ def main() -> None:
             use_database(name)
             nb = out["new_build"][which]
             with Clock() as c:
-                analytics_refresh_after_build(project_id=nb["project_id"], build_id=nb["build_id"])
+                steps = analytics_refresh_after_build(project_id=nb["project_id"], build_id=nb["build_id"])
             timed(timings[which], "after_build", c)
+            for step, (_, seconds) in steps.items():
+                out.setdefault("after_build_steps", {}).setdefault(which, {}).setdefault(step, []).append(seconds)
         log(f"analytics repeat {rep + 1}: small {timings['small']['after_build']['wall'][-1]:.2f}s, "
             f"large {timings['large']['after_build']['wall'][-1]:.2f}s")
     out["incremental"] = {w: t["after_build"] for w, t in timings.items()}
