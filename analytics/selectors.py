@@ -67,7 +67,13 @@ def runs_frame(
         result_rows,
         columns=["test_id", "build_id", "attempt", "outcome", "duration", "failure_type", "message"],
     )
-    of_build = builds.iloc[pd.Index(builds["build_id"]).get_indexer(results["build_id"])].reset_index(drop=True)
+    position = pd.Index(builds["build_id"]).get_indexer(results["build_id"])
+    if (position < 0).any():
+        # A build committed between the two reads (each statement has its own snapshot): its results are left
+        # to that build's own after-build refresh rather than given another build's commit and start.
+        results = results[position >= 0].reset_index(drop=True)
+        position = position[position >= 0]
+    of_build = builds.iloc[position].reset_index(drop=True)
     frame = pd.DataFrame(
         {
             "test_id": results["test_id"],

@@ -249,13 +249,20 @@ def growth_by_test(*, project_id: int, week: date, window: int = GROWTH_WINDOW) 
 
 
 def duration_growth_frame(scope: Scope) -> pd.DataFrame:
-    """Tests whose mean run time grew most up to ``scope.week`` (columns :data:`GROWTH_COLUMNS`), as the last
-    analytics refresh stored them (``RuntimeGrowth``): one row read, whatever the number of tests. Empty when
-    no refresh has covered the week yet.
+    """Tests whose mean run time grew most up to ``scope.week`` (columns :data:`GROWTH_COLUMNS`).
+
+    Read from what the analytics refresh stored for the week (``RuntimeGrowth``: one row, whatever the number
+    of tests). A week no refresh has covered yet (just after an upgrade, or a week outside the picker) is
+    ranked here instead, at the cost of reading its tests × 2 windows of the rollup once per view.
     """
-    top = RuntimeGrowth.objects.filter(project_id=scope.project_id, week=scope.week).values_list(
-        "top", flat=True
-    ).first() or {}
+    top = RuntimeGrowth.objects.filter(
+        project_id=scope.project_id, week=scope.week, window_weeks=GROWTH_WINDOW
+    ).values_list("top", flat=True).first()
+    if top is None:
+        frame = growth_by_test(project_id=scope.project_id, week=scope.week)
+        if scope.component_id is not None:
+            frame = frame[frame["component_key"] == scope.component_id]
+        return frame.head(GROWTH_TOP)[GROWTH_COLUMNS].reset_index(drop=True)
     entries = top.get("all" if scope.component_id is None else str(scope.component_id), [])
     return pd.DataFrame.from_records(entries, columns=GROWTH_COLUMNS)
 

@@ -1,9 +1,43 @@
+from datetime import date
+
 from django import forms
 from django.contrib import admin, messages
 
 from ingest import models
-from ingest.services.results import project_weeks_rebuild
+from ingest.services.results import project_weeks_rebuild, rollup_rebuild
 from ingest.tasks import job_enqueue
+
+
+class _RebuildsRollupsOnDelete:
+    """Admin deletes recompute the weekly rollups they touch (the rollups are kept by ingest, not by cascades).
+
+    ``_rollup_scopes`` gives (project id, week) pairs: a week rebuilds both rollups of that week, ``None``
+    only the per-component totals of the project.
+    """
+
+    def _rollup_scopes(self, queryset) -> set[tuple[int, date | None]]:
+        raise NotImplementedError
+
+    def delete_model(self, request, obj):
+        scopes = self._rollup_scopes(type(obj).objects.filter(pk=obj.pk))
+        super().delete_model(request, obj)
+        _rollups_rebuild(scopes)
+
+    def delete_queryset(self, request, queryset):
+        scopes = self._rollup_scopes(queryset)
+        super().delete_queryset(request, queryset)
+        _rollups_rebuild(scopes)
+
+
+def _rollups_rebuild(scopes: set[tuple[int, date | None]]) -> None:
+    projects = models.Project.objects.in_bulk({project_id for project_id, _ in scopes})
+    for project_id, week in sorted(scopes, key=lambda s: (s[0], s[1] or date.min)):
+        if project_id not in projects:
+            continue
+        if week is None:
+            project_weeks_rebuild(project_id=project_id)
+        else:
+            rollup_rebuild(project=projects[project_id], week=week)
 
 
 @admin.register(models.Project)
@@ -13,9 +47,12 @@ class ProjectAdmin(admin.ModelAdmin):
 
 
 @admin.register(models.Component)
-class ComponentAdmin(admin.ModelAdmin):
+class ComponentAdmin(_RebuildsRollupsOnDelete, admin.ModelAdmin):
     list_display = ("name", "project")
     list_filter = ("project",)
+
+    def _rollup_scopes(self, queryset):  # its tests lose their component (SET_NULL)
+        return {(project_id, None) for project_id in queryset.values_list("project_id", flat=True).distinct()}
 
 
 @admin.register(models.ComponentAlias)
@@ -31,7 +68,7 @@ class ComponentRuleAdmin(admin.ModelAdmin):
 
 
 @admin.register(models.TestCase)
-class TestCaseAdmin(admin.ModelAdmin):
+class TestCaseAdmin(_RebuildsRollupsOnDelete, admin.ModelAdmin):
     list_display = ("classname", "name", "component", "component_locked", "project")
     list_filter = ("project", "component")
     search_fields = ("classname", "name")
@@ -44,12 +81,18 @@ class TestCaseAdmin(admin.ModelAdmin):
         if change and "component" in form.changed_data:
             project_weeks_rebuild(project_id=obj.project_id)  # the weekly totals are kept per component
 
+    def _rollup_scopes(self, queryset):
+        return {(project_id, None) for project_id in queryset.values_list("project_id", flat=True).distinct()}
+
 
 @admin.register(models.Build)
-class BuildAdmin(admin.ModelAdmin):
+class BuildAdmin(_RebuildsRollupsOnDelete, admin.ModelAdmin):
     list_display = ("external_id", "project", "branch", "commit", "ci_job", "started_at")
     list_filter = ("project", "branch")
     search_fields = ("external_id", "commit")
+
+    def _rollup_scopes(self, queryset):
+        return set(queryset.values_list("project_id", "week").distinct())
 
 
 @admin.register(models.ApiToken)

@@ -165,15 +165,14 @@ class TestResult(models.Model):
         default=dict, blank=True, help_text="Field → original length, for each field cut to its size cap."
     )
     signature = models.CharField(
-        max_length=32, blank=True, help_text="Failure-cause signature key (failures only)."
-    )
+        max_length=32, blank=True, db_index=True, help_text="Failure-cause signature key (failures only)."
+    )  # on PostgreSQL without Django's extra LIKE index (migration 0003): signatures are compared for equality
 
     class Meta:
         indexes = [
             models.Index(fields=["test_case", "build"]),
             models.Index(fields=["build", "outcome"]),
             models.Index(fields=["project", "outcome"]),
-            models.Index(fields=["signature"], name="ingest_testresult_signature"),  # equality only, no LIKE
         ]
 
     def __str__(self) -> str:
@@ -221,8 +220,9 @@ class ProjectWeek(models.Model):
     The weekly trend charts read these few rows (weeks × components) instead of every test's week, so their
     cost does not grow with the number of tests or the length of the history. ``component_key`` is the
     test's component id at the time of writing, 0 for tests without a component (a plain integer, not a
-    foreign key, so that "no component" has a key the unique constraint can use); whatever re-assigns
-    components rebuilds these rows (``ingest.services.results.project_weeks_rebuild``). ``tests`` counts
+    foreign key, so that "no component" has a key the unique constraint can use). The component rules and
+    the admin rebuild these rows when they move or delete tests (``ingest.services.results.project_weeks_rebuild``);
+    totals left under a component deleted otherwise are read as "(no component)". ``tests`` counts
     the tests with at least one run in the week.
     """
 

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from django.db import transaction
+
 from ingest.models import Component, ComponentAlias, ComponentRule, Project, TestCase, normalise_alias
 
 
@@ -27,6 +29,8 @@ def components_apply_rules(*, project: Project) -> int:
 
     Rebuilds the per-component weekly totals when any test moved.
     """
+    from ingest.services.results import project_weeks_rebuild  # results imports this module
+
     rules = ComponentRules(project)
     changed = []
     for tc in TestCase.objects.filter(project=project, component_locked=False).only("id", "classname", "component_id"):
@@ -34,11 +38,10 @@ def components_apply_rules(*, project: Project) -> int:
         if new != tc.component_id:
             tc.component_id = new
             changed.append(tc)
-    TestCase.objects.bulk_update(changed, ["component"], batch_size=2000)
-    if changed:
-        from ingest.services.results import project_weeks_rebuild  # results imports this module
-
-        project_weeks_rebuild(project_id=project.pk)  # the weekly totals are kept per component
+    with transaction.atomic():  # the components and the per-component totals change together
+        TestCase.objects.bulk_update(changed, ["component"], batch_size=2000)
+        if changed:
+            project_weeks_rebuild(project_id=project.pk)
     return len(changed)
 
 

@@ -656,8 +656,9 @@ def rollup_add_counts(*, project_id: int, week, counts: dict[int, list]) -> None
                 + f" SELECT %s, %s::date, COALESCE(c.component_id, 0),"
                 f" SUM(CASE WHEN tw.runs = d.runs THEN 1 ELSE 0 END), {sums}"
                 " FROM d JOIN tw ON tw.test_case_id = d.t JOIN ingest_testcase c ON c.id = d.t"
-                " GROUP BY COALESCE(c.component_id, 0)" + _PROJECTWEEK_ADD,
-                [json.dumps([{"t": tc, **dict(zip(_ROLLUP_FIELDS, c, strict=True))} for tc, c in counts.items()]),
+                " GROUP BY COALESCE(c.component_id, 0) ORDER BY 3" + _PROJECTWEEK_ADD,
+                # Rows in test-id and component order: concurrent jobs lock shared rows in the same order.
+                [json.dumps([{"t": tc, **dict(zip(_ROLLUP_FIELDS, c, strict=True))} for tc, c in sorted(counts.items())]),
                  project_id, week, project_id, week],
             )
             return
@@ -679,6 +680,8 @@ def rollup_add_counts(*, project_id: int, week, counts: dict[int, list]) -> None
         )
         totals: dict[int, list] = {}
         for tc, c in counts.items():
+            if tc not in known:  # a test case deleted since this process cached its id: import again, looking up
+                raise IntegrityError(f"test case {tc} no longer exists")
             comp, ran_before = known[tc]
             total = totals.setdefault(comp, [0] * (len(_ROLLUP_FIELDS) + 1))
             total[0] += 0 if ran_before else 1

@@ -8,6 +8,7 @@ from __future__ import annotations
 from datetime import timedelta
 
 import numpy as np
+import pytest
 from django.utils import timezone
 
 from ingest.models import Build, Component, Project, TestCase, TestResult
@@ -82,3 +83,37 @@ def simulated_outcomes(seed: int = 11, *, n_builds: int = 40) -> tuple[dict[str,
         outcomes[f"test_flaky_{i:02d}"] = ["F" if rng.random() < rate else "P" for _ in range(n_builds)]
         truth[f"test_flaky_{i:02d}"] = ("flaky", rate)
     return outcomes, truth
+
+
+@pytest.mark.django_db
+def test_runs_frame_leaves_out_results_of_a_build_committed_between_its_two_reads():
+    # runs_frame reads the window's builds, then the results: a build (with results) that appears between the
+    # two statements must not lend its results another build's commit and start. Simulated by writing one
+    # through a hook on the second statement.
+    from datetime import UTC, datetime
+
+    from django.db import connection
+
+    from analytics.selectors import runs_frame
+    from ingest.models import Build, Project, TestCase, TestResult
+
+    project = Project.objects.create(slug="p", name="P")
+    test = TestCase.objects.create(project=project, name="t")
+    early = Build.objects.create(project=project, external_id="1", commit="a" * 40,
+                                 started_at=datetime(2026, 10, 1, tzinfo=UTC))
+    TestResult.objects.create(project=project, build=early, test_case=test, outcome="passed")
+    state = {"done": False}
+
+    def late_build(execute, sql, params, many, context):
+        if not state["done"] and "r.test_case_id" in sql:
+            state["done"] = True
+            late = Build.objects.create(project=project, external_id="2", commit="b" * 40,
+                                        started_at=datetime(2026, 10, 2, tzinfo=UTC))
+            TestResult.objects.create(project=project, build=late, test_case=test, outcome="failed")
+        return execute(sql, params, many, context)
+
+    with connection.execute_wrapper(late_build):
+        frame = runs_frame(project_id=project.pk)
+    assert state["done"]
+    assert list(frame["build_id"]) == [early.pk] and list(frame["commit"]) == ["a" * 40]
+    assert len(runs_frame(project_id=project.pk)) == 2  # the next refresh sees both
