@@ -31,6 +31,7 @@ import numpy as np
 import pandas as pd
 from scipy import sparse
 from scipy.optimize import linear_sum_assignment
+from scipy.sparse.csgraph import connected_components
 from sklearn.base import BaseEstimator
 from sklearn.cluster import AgglomerativeClustering
 from sklearn.feature_extraction.text import ENGLISH_STOP_WORDS, TfidfVectorizer
@@ -325,27 +326,63 @@ class FailureClusterer(BaseEstimator):
         return self
 
     def _cluster(self, matrix: sparse.csr_matrix, keys: np.ndarray, pinned: dict[str, int]) -> np.ndarray:
+        """Average/complete-linkage clusters cut at the threshold, computed per connected component.
+
+        A merge needs the (average or largest) distance between two clusters below the threshold, so at least
+        one pair across them is that close: no cluster spans two components of the graph "distance below the
+        threshold". Clustering each component on its own dense block gives the same partition as one
+        clustering of the full matrix (checked against scikit-learn on the full matrix in the tests) at the
+        cost of the largest component squared instead of every signature squared. With a threshold above 1,
+        unrelated signatures (distance 1) are close too: one component, the full matrix.
+        """
         n = matrix.shape[0]
         if n == 1:
             return np.zeros(1, dtype=np.int64)
-        similarity = (matrix @ matrix.T).toarray()
-        distance = np.clip(1.0 - similarity, 0.0, 2.0)
-        np.fill_diagonal(distance, 0.0)
+        threshold = float(self.distance_threshold)
         pin = np.array([pinned.get(key, -1) for key in keys])
+        similarity = sparse.csr_matrix(matrix @ matrix.T)
+        if threshold > 1.0:
+            component = np.zeros(n, dtype=np.int64)
+        else:
+            # A hair below the cut, so that rounding never drops a pair the full matrix would join.
+            graph = sparse.coo_matrix(similarity > 1.0 - threshold - 1e-9)
+            rows, cols = graph.row, graph.col
+            apart = (pin[rows] >= 0) & (pin[cols] >= 0) & (pin[rows] != pin[cols])  # cannot-link pins
+            rows, cols = rows[~apart], cols[~apart]
+            pinned_rows = np.flatnonzero(pin >= 0)  # keys pinned together are linked (a chain suffices)
+            order = pinned_rows[np.argsort(pin[pinned_rows], kind="stable")]
+            chain = pin[order[1:]] == pin[order[:-1]]
+            rows = np.concatenate([rows, order[:-1][chain]])
+            cols = np.concatenate([cols, order[1:][chain]])
+            linked = sparse.coo_matrix((np.ones(len(rows)), (rows, cols)), shape=(n, n))
+            _, component = connected_components(linked, directed=False)
+        labels = np.empty(n, dtype=np.int64)
+        next_label = 0
+        for members in _groups(component):
+            if len(members) == 1:
+                labels[members] = next_label
+                next_label += 1
+                continue
+            block = self._linkage_labels(similarity[members][:, members], pin[members])
+            labels[members] = block + next_label
+            next_label += int(block.max()) + 1
+        return _enforce_pins(labels, pin)
+
+    def _linkage_labels(self, similarity: sparse.csr_matrix, pin: np.ndarray) -> np.ndarray:
+        distance = np.clip(1.0 - similarity.toarray(), 0.0, 2.0)
+        np.fill_diagonal(distance, 0.0)
         pinned_rows = np.flatnonzero(pin >= 0)
         if len(pinned_rows):
             sub = pin[pinned_rows]
             same = sub[:, None] == sub[None, :]
-            block = np.where(same, 0.0, _APART)
-            distance[np.ix_(pinned_rows, pinned_rows)] = block
+            distance[np.ix_(pinned_rows, pinned_rows)] = np.where(same, 0.0, _APART)
         model = AgglomerativeClustering(
             n_clusters=None,
             metric="precomputed",
             linkage=self.linkage,
             distance_threshold=float(self.distance_threshold),
         )
-        labels = model.fit_predict(distance).astype(np.int64)
-        return _enforce_pins(labels, pin)
+        return model.fit_predict(distance).astype(np.int64)
 
     @staticmethod
     def _stable_ids(
@@ -515,6 +552,14 @@ class FailureClusterer(BaseEstimator):
         return result.sort_values(["size", "cluster_id"], ascending=[False, True], kind="stable").reset_index(
             drop=True
         )
+
+
+def _groups(component: np.ndarray) -> list[np.ndarray]:
+    """Row indices of each component, in order of first appearance."""
+    order = np.argsort(component, kind="stable")
+    bounds = np.flatnonzero(np.diff(component[order])) + 1
+    groups = np.split(order, bounds)
+    return sorted(groups, key=lambda g: int(g[0]))
 
 
 def _enforce_pins(labels: np.ndarray, pin: np.ndarray) -> np.ndarray:
