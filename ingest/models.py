@@ -179,7 +179,23 @@ class TestResult(models.Model):
         return f"{self.test_case_id}@{self.build_id}#{self.attempt}: {self.outcome}"
 
 
-class TestWeek(models.Model):
+class WeeklyCounts(models.Model):
+    """The counts both weekly rollups keep (``rollup_add_counts`` adds to all of them in one statement)."""
+
+    runs = models.IntegerField(default=0)
+    passed = models.IntegerField(default=0)
+    failed = models.IntegerField(default=0)
+    errors = models.IntegerField(default=0)
+    skipped = models.IntegerField(default=0)
+    reruns = models.IntegerField(default=0)
+    duration_total = models.FloatField(default=0.0)
+    duration_count = models.IntegerField(default=0)
+
+    class Meta:
+        abstract = True
+
+
+class TestWeek(WeeklyCounts):
     """Per-test, per-week rollup kept up to date by ingest: pages read this, not the results table.
 
     Derived data (``rollup_rebuild`` recomputes it from the results), so its foreign keys are not database
@@ -195,14 +211,6 @@ class TestWeek(models.Model):
     test_case = models.ForeignKey(TestCase, on_delete=models.CASCADE, related_name="weeks", db_index=False,
                                   db_constraint=False)
     week = models.DateField()
-    runs = models.IntegerField(default=0)
-    passed = models.IntegerField(default=0)
-    failed = models.IntegerField(default=0)
-    errors = models.IntegerField(default=0)
-    skipped = models.IntegerField(default=0)
-    reruns = models.IntegerField(default=0)
-    duration_total = models.FloatField(default=0.0)
-    duration_count = models.IntegerField(default=0)
 
     class Meta:
         constraints = [models.UniqueConstraint(fields=["test_case", "week"], name="uniq_test_week")]
@@ -214,7 +222,7 @@ class TestWeek(models.Model):
         ]
 
 
-class ProjectWeek(models.Model):
+class ProjectWeek(WeeklyCounts):
     """Per-project, per-week, per-component totals of :class:`TestWeek`, kept up to date by ingest.
 
     The weekly trend charts read these few rows (weeks × components) instead of every test's week, so their
@@ -230,14 +238,6 @@ class ProjectWeek(models.Model):
     week = models.DateField()
     component_key = models.BigIntegerField(default=0)
     tests = models.IntegerField(default=0)
-    runs = models.IntegerField(default=0)
-    passed = models.IntegerField(default=0)
-    failed = models.IntegerField(default=0)
-    errors = models.IntegerField(default=0)
-    skipped = models.IntegerField(default=0)
-    reruns = models.IntegerField(default=0)
-    duration_total = models.FloatField(default=0.0)
-    duration_count = models.IntegerField(default=0)
 
     class Meta:
         constraints = [

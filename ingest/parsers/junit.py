@@ -1014,48 +1014,22 @@ def _result(
 ) -> ParsedResult:
     failure_type, message, details = attempt.failure_type, attempt.message, attempt.details
     system_out, system_err = attempt.system_out, attempt.system_err
-    if (
+    truncated: list[tuple[str, int]] = []
+    if not (
         len(failure_type) <= MESSAGE_CAP
         and len(message) <= MESSAGE_CAP
         and len(details) <= DETAILS_CAP
         and len(system_out) <= OUTPUT_CAP
         and len(system_err) <= OUTPUT_CAP
-    ):
-        # Nothing to cap (the usual case).
-        return _parsed_new(
-            suite,
-            classname,
-            name,
-            file,
-            attempt.outcome,
-            attempt.duration,
-            number,
-            failure_type,
-            message,
-            details,
-            system_out,
-            system_err,
-            (),
-            timestamp,
-            properties,
-        )
-    truncated: list[tuple[str, int]] = []
+    ):  # something to cap (the usual case skips the five calls)
+        failure_type = _cap(failure_type, MESSAGE_CAP, "failure_type", truncated)
+        message = _cap(message, MESSAGE_CAP, "message", truncated)
+        details = _cap(details, DETAILS_CAP, "details", truncated)
+        system_out = _cap(system_out, OUTPUT_CAP, "system_out", truncated)
+        system_err = _cap(system_err, OUTPUT_CAP, "system_err", truncated)
     return _parsed_new(
-        suite,
-        classname,
-        name,
-        file,
-        attempt.outcome,
-        attempt.duration,
-        number,
-        _cap(attempt.failure_type, MESSAGE_CAP, "failure_type", truncated),
-        _cap(attempt.message, MESSAGE_CAP, "message", truncated),
-        _cap(attempt.details, DETAILS_CAP, "details", truncated),
-        _cap(attempt.system_out, OUTPUT_CAP, "system_out", truncated),
-        _cap(attempt.system_err, OUTPUT_CAP, "system_err", truncated),
-        tuple(truncated),
-        timestamp,
-        properties,
+        suite, classname, name, file, attempt.outcome, attempt.duration, number, failure_type, message, details,
+        system_out, system_err, tuple(truncated), timestamp, properties,
     )
 
 
