@@ -1,8 +1,9 @@
 """Reads behind the "This week" page: rollups (TestWeek, TestHealth, Defect counts) → DataFrames and dicts.
 
 Nothing here scans the raw results table: every figure comes from the weekly rollups kept by ingest
-(``ProjectWeek`` for the trends, ``TestWeek`` for the week's tests), the latest flakiness scores (``TestHealth``) or the defects table, so the page's cost grows
-with the number of tests and weeks shown, not with the history. The number of queries is fixed (the view
+(``ProjectWeek`` for the trends, ``TestWeek`` for the week's tests), what the analytics refresh stored
+(``TestHealth``, ``RuntimeGrowth``) or the defects table, so the page's cost grows with the number of tests
+and weeks shown, not with the history. The number of queries is fixed (the view
 tests pin it).
 """
 

@@ -12,11 +12,12 @@ class _RebuildsRollupsOnDelete:
     """Admin deletes recompute the weekly rollups they touch (the rollups are kept by ingest, not by cascades).
 
     ``_rollup_scopes`` gives (project id, week) pairs: a week rebuilds both rollups of that week, ``None``
-    only the per-component totals of the project.
+    only the per-component totals of the project (the default: deleting tests or components moves tests out
+    of their component totals, whatever the week).
     """
 
     def _rollup_scopes(self, queryset) -> set[tuple[int, date | None]]:
-        raise NotImplementedError
+        return {(project_id, None) for project_id in queryset.values_list("project_id", flat=True).distinct()}
 
     def delete_model(self, request, obj):
         scopes = self._rollup_scopes(type(obj).objects.filter(pk=obj.pk))
@@ -51,9 +52,6 @@ class ComponentAdmin(_RebuildsRollupsOnDelete, admin.ModelAdmin):
     list_display = ("name", "project")
     list_filter = ("project",)
 
-    def _rollup_scopes(self, queryset):  # its tests lose their component (SET_NULL)
-        return {(project_id, None) for project_id in queryset.values_list("project_id", flat=True).distinct()}
-
 
 @admin.register(models.ComponentAlias)
 class ComponentAliasAdmin(admin.ModelAdmin):
@@ -80,9 +78,6 @@ class TestCaseAdmin(_RebuildsRollupsOnDelete, admin.ModelAdmin):
         super().save_model(request, obj, form, change)
         if change and "component" in form.changed_data:
             project_weeks_rebuild(project_id=obj.project_id)  # the weekly totals are kept per component
-
-    def _rollup_scopes(self, queryset):
-        return {(project_id, None) for project_id in queryset.values_list("project_id", flat=True).distinct()}
 
 
 @admin.register(models.Build)

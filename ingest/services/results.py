@@ -706,8 +706,8 @@ _PROJECTWEEK_FROM_TESTWEEK = (
 def project_weeks_rebuild(*, project_id: int, week=None) -> None:
     """Recompute the per-component weekly totals of a project (or one week) from the per-test rollup.
 
-    Called by whatever re-assigns test components (the totals are kept per component) and by
-    :func:`rollup_rebuild`. Its cost grows with tests × weeks: an administrative step, not a per-build one.
+    Called when tests change component or are deleted (the component rules, the admin), since the totals
+    are kept per component, and by :func:`rollup_rebuild`. Its cost grows with tests × weeks: an administrative step, not a per-build one.
     """
     where, params = "WHERE w.project_id = %s", [project_id]
     if week is not None:
